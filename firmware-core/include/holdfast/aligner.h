@@ -1,0 +1,71 @@
+// Time alignment of irregular telemetry: sample-and-hold with a per-point
+// staleness limit. Readings are converted to SI on entry. Out-of-order,
+// duplicate, unknown and non-finite readings are counted, never fatal.
+#pragma once
+
+#include <cstdint>
+#include <string>
+#include <vector>
+
+#include "holdfast/reading.h"
+#include "holdfast/site.h"
+
+namespace holdfast {
+
+enum class FeedStatus : uint8_t {
+  kAccepted = 0,
+  kLate,          // older than the last tick but newer than the held value: accepted
+  kOutOfOrder,    // older than the held value: ignored (the newer value stays)
+  kDuplicate,     // same time as the held value: ignored
+  kUnknownPoint,  // point index not in the site
+  kNotFinite,     // NaN or infinite value or time
+};
+const char* FeedStatusName(FeedStatus s);
+
+struct AlignerCounters {
+  uint64_t accepted = 0;
+  uint64_t late = 0;
+  uint64_t out_of_order = 0;
+  uint64_t duplicate = 0;
+  uint64_t unknown_point = 0;
+  uint64_t not_finite = 0;
+  uint64_t bad_quality = 0;  // accepted readings flagged bad by the source
+  std::string ToString() const;
+};
+
+struct HeldValue {
+  double value_si = 0.0;
+  double time_s = 0.0;
+  Quality quality = Quality::kBad;
+  bool has_value = false;
+};
+
+class Aligner {
+ public:
+  // Sizes the per-point state; the site must outlive the aligner.
+  void Reset(const Site& site);
+
+  FeedStatus Feed(const Reading& r);
+  // Marks the time of the latest tick (for counting late readings).
+  void SetTickTime(double t) { tick_time_s_ = t; }
+
+  const HeldValue& held(int point) const { return held_[point]; }
+  // True when the point has a value of good or uncertain quality no older
+  // than its staleness limit at time t.
+  bool Usable(int point, double t) const {
+    const HeldValue& h = held_[point];
+    return h.has_value && h.quality != Quality::kBad && (t - h.time_s) <= staleness_s_[point];
+  }
+  double value(int point) const { return held_[point].value_si; }
+  const AlignerCounters& counters() const { return counters_; }
+  int point_count() const { return static_cast<int>(held_.size()); }
+
+ private:
+  const Site* site_ = nullptr;
+  std::vector<HeldValue> held_;
+  std::vector<double> staleness_s_;
+  double tick_time_s_ = -1e300;
+  AlignerCounters counters_;
+};
+
+}  // namespace holdfast

@@ -1,0 +1,79 @@
+#include "holdfast/aligner.h"
+
+#include <cmath>
+#include <sstream>
+
+namespace holdfast {
+
+const char* QualityName(Quality q) {
+  switch (q) {
+    case Quality::kGood: return "good";
+    case Quality::kUncertain: return "uncertain";
+    case Quality::kBad: return "bad";
+  }
+  return "?";
+}
+
+const char* FeedStatusName(FeedStatus s) {
+  switch (s) {
+    case FeedStatus::kAccepted: return "accepted";
+    case FeedStatus::kLate: return "late";
+    case FeedStatus::kOutOfOrder: return "out_of_order";
+    case FeedStatus::kDuplicate: return "duplicate";
+    case FeedStatus::kUnknownPoint: return "unknown_point";
+    case FeedStatus::kNotFinite: return "not_finite";
+  }
+  return "?";
+}
+
+std::string AlignerCounters::ToString() const {
+  std::ostringstream o;
+  o << "accepted=" << accepted << " late=" << late << " out_of_order=" << out_of_order
+    << " duplicate=" << duplicate << " unknown_point=" << unknown_point
+    << " not_finite=" << not_finite << " bad_quality=" << bad_quality;
+  return o.str();
+}
+
+void Aligner::Reset(const Site& site) {
+  site_ = &site;
+  held_.assign(site.points.size(), HeldValue{});
+  staleness_s_.assign(site.points.size(), 0.0);
+  for (size_t i = 0; i < site.points.size(); ++i) staleness_s_[i] = site.points[i].staleness_s;
+  tick_time_s_ = -1e300;
+  counters_ = AlignerCounters{};
+}
+
+FeedStatus Aligner::Feed(const Reading& r) {
+  if (r.point < 0 || r.point >= static_cast<int32_t>(held_.size())) {
+    ++counters_.unknown_point;
+    return FeedStatus::kUnknownPoint;
+  }
+  if (!std::isfinite(r.value) || !std::isfinite(r.time_s)) {
+    ++counters_.not_finite;
+    return FeedStatus::kNotFinite;
+  }
+  HeldValue& h = held_[r.point];
+  if (h.has_value) {
+    if (r.time_s < h.time_s) {
+      ++counters_.out_of_order;
+      return FeedStatus::kOutOfOrder;
+    }
+    if (r.time_s == h.time_s) {
+      ++counters_.duplicate;
+      return FeedStatus::kDuplicate;
+    }
+  }
+  h.value_si = site_->points[r.point].unit.ToSi(r.value);
+  h.time_s = r.time_s;
+  h.quality = r.quality;
+  h.has_value = true;
+  if (r.quality == Quality::kBad) ++counters_.bad_quality;
+  if (r.time_s <= tick_time_s_) {
+    ++counters_.late;
+    return FeedStatus::kLate;
+  }
+  ++counters_.accepted;
+  return FeedStatus::kAccepted;
+}
+
+}  // namespace holdfast

@@ -1,0 +1,412 @@
+#include "holdfast/inventory.h"
+
+#include <algorithm>
+#include <cmath>
+
+#include "holdfast/pipe.h"
+
+namespace holdfast {
+namespace {
+
+constexpr double kWallReferenceTemperature_k = 288.15;  // bore measured at 15 degC
+
+// Elevation at chainage x from the profile (linear, held beyond the ends).
+double ElevationAt(const std::vector<ElevationPoint>& profile, double x) {
+  if (profile.empty()) return 0.0;
+  if (x <= profile.front().chainage_m) return profile.front().elevation_m;
+  if (x >= profile.back().chainage_m) return profile.back().elevation_m;
+  for (size_t k = 1; k < profile.size(); ++k) {
+    if (x <= profile[k].chainage_m) {
+      const ElevationPoint& a = profile[k - 1];
+      const ElevationPoint& b = profile[k];
+      const double w = (x - a.chainage_m) / (b.chainage_m - a.chainage_m);
+      return a.elevation_m + w * (b.elevation_m - a.elevation_m);
+    }
+  }
+  return profile.back().elevation_m;
+}
+
+// Hydraulic resistance per metre of a section relative to the first: f/D^5.
+double ResistancePerMetre(const PipeSection& s) {
+  const double d = s.inside_diameter_m();
+  const double f = FullyRoughFriction(s.roughness_m / d);
+  return f / std::pow(d, 5.0);
+}
+
+}  // namespace
+
+bool SegmentInventory::StrapVolume(const std::vector<StrapPoint>& table, double level_m,
+                                   double* volume_m3, double* dv_dl_m2) {
+  const size_t n = table.size();
+  if (n < 2 || !(level_m >= table.front().level_m) || !(level_m <= table.back().level_m)) {
+    if (n >= 2) {
+      const bool low = !(level_m >= table.front().level_m);
+      const StrapPoint& a = low ? table[0] : table[n - 2];
+      const StrapPoint& b = low ? table[1] : table[n - 1];
+      *dv_dl_m2 = (b.volume_m3 - a.volume_m3) / (b.level_m - a.level_m);
+      *volume_m3 = low ? a.volume_m3 : b.volume_m3;
+    } else {
+      *volume_m3 = 0.0;
+      *dv_dl_m2 = 0.0;
+    }
+    return false;
+  }
+  // Binary search for the bracketing rows.
+  size_t lo = 0, hi = n - 1;
+  while (hi - lo > 1) {
+    const size_t mid = (lo + hi) / 2;
+    if (table[mid].level_m <= level_m) lo = mid; else hi = mid;
+  }
+  const StrapPoint& a = table[lo];
+  const StrapPoint& b = table[hi];
+  const double slope = (b.volume_m3 - a.volume_m3) / (b.level_m - a.level_m);
+  *volume_m3 = a.volume_m3 + slope * (level_m - a.level_m);
+  *dv_dl_m2 = slope;
+  return true;
+}
+
+bool SegmentInventory::Init(const Site& site, int segment, const DensityTable* table,
+                            std::string* why) {
+  auto fail = [&](const std::string& m) {
+    if (why) *why = m;
+    return false;
+  };
+  if (segment < 0 || segment >= static_cast<int>(site.segments.size())) return fail("no such segment");
+  if (table == nullptr || !table->built()) return fail("density table not built");
+  site_ = &site;
+  seg_ = &site.segments[segment];
+  table_ = table;
+  p_atm_ = site.atmospheric_pressure_pa;
+  const SegmentSpec& seg = *seg_;
+  if (seg.sections.empty()) return fail("segment " + seg.id + " has no pipe sections");
+  if (seg.pressure_gauges.empty()) return fail("segment " + seg.id + " has no pressure points");
+  if (!(seg.reach_length_m > 0.0)) return fail("segment " + seg.id + ": reach length must be positive");
+  transport_ = std::isfinite(seg.ground_temperature_k) && std::isfinite(seg.thermal_time_constant_s);
+
+  // Reach grid.
+  x_.clear(); dx_.clear(); z_.clear(); a0_.clear(); compliance_.clear();
+  wall_alpha2_.clear(); s_.clear(); area_sec_.clear();
+  const double r0 = ResistancePerMetre(seg.sections.front());
+  std::vector<double> sec_start_x, sec_start_s, sec_rate;
+  double x0 = 0.0, s0 = 0.0;
+  for (size_t k = 0; k < seg.sections.size(); ++k) {
+    const PipeSection& sec = seg.sections[k];
+    const double rate = ResistancePerMetre(sec) / r0;
+    sec_start_x.push_back(x0);
+    sec_start_s.push_back(s0);
+    sec_rate.push_back(rate);
+    const int n = std::max(1, static_cast<int>(std::ceil(sec.length_m / seg.reach_length_m - 1e-9)));
+    const double dx = sec.length_m / n;
+    for (int i = 0; i < n; ++i) {
+      const double xm = x0 + (i + 0.5) * dx;
+      x_.push_back(xm);
+      dx_.push_back(dx);
+      z_.push_back(ElevationAt(seg.profile, xm));
+      a0_.push_back(sec.flow_area_m2());
+      compliance_.push_back(sec.wall_compliance_per_pa());
+      wall_alpha2_.push_back(2.0 * sec.wall_thermal_expansion_per_k);
+      s_.push_back(s0 + (i + 0.5) * dx * rate);
+      area_sec_.push_back(static_cast<int>(k));
+    }
+    x0 += sec.length_m;
+    s0 += sec.length_m * rate;
+  }
+  auto s_at = [&](double x) {
+    size_t k = 0;
+    while (k + 1 < sec_start_x.size() && x >= sec_start_x[k + 1]) ++k;
+    return sec_start_s[k] + (x - sec_start_x[k]) * sec_rate[k];
+  };
+  const int n = static_cast<int>(x_.size());
+
+  // Pressure interpolation weights in the resistance coordinate.
+  const int gp = static_cast<int>(seg.pressure_gauges.size());
+  gauge_s_.assign(gp, 0.0);
+  for (int j = 0; j < gp; ++j) gauge_s_[j] = s_at(seg.pressure_gauges[j].chainage_m);
+  p_lo_.assign(n, 0); p_hi_.assign(n, 0); p_w_.assign(n, 0.0);
+  for (int i = 0; i < n && gp > 1; ++i) {
+    int j = 0;
+    while (j + 2 < gp && s_[i] > gauge_s_[j + 1]) ++j;
+    const double ds = gauge_s_[j + 1] - gauge_s_[j];
+    p_lo_[i] = j;
+    p_hi_[i] = j + 1;
+    p_w_[i] = ds > 0.0 ? (s_[i] - gauge_s_[j]) / ds : 0.0;  // < 0 or > 1 extrapolates
+  }
+  gauge_p_.assign(gp, 0.0);
+  gauge_head_rho_.assign(gp, 0.0);
+  p_gauge_reach_.assign(gp, 0);
+  for (int j = 0; j < gp; ++j) {
+    const auto it = std::lower_bound(x_.begin(), x_.end(), seg.pressure_gauges[j].chainage_m);
+    p_gauge_reach_[j] = std::min(static_cast<int>(it - x_.begin()), n - 1);
+  }
+
+  // Temperature interpolation weights in chainage (held beyond the end gauges).
+  const int gt = static_cast<int>(seg.temperature_gauges.size());
+  t_lo_.assign(n, 0); t_hi_.assign(n, 0); t_w_.assign(n, 0.0);
+  for (int i = 0; i < n && gt > 0; ++i) {
+    const double xi = x_[i];
+    if (gt == 1 || xi <= seg.temperature_gauges.front().chainage_m) {
+      continue;  // lo = hi = 0
+    }
+    if (xi >= seg.temperature_gauges.back().chainage_m) {
+      t_lo_[i] = t_hi_[i] = gt - 1;
+      continue;
+    }
+    int j = 0;
+    while (j + 2 < gt && xi > seg.temperature_gauges[j + 1].chainage_m) ++j;
+    const double dxg = seg.temperature_gauges[j + 1].chainage_m - seg.temperature_gauges[j].chainage_m;
+    t_lo_[i] = j;
+    t_hi_[i] = j + 1;
+    t_w_[i] = dxg > 0.0 ? (xi - seg.temperature_gauges[j].chainage_m) / dxg : 0.0;
+  }
+  // Where each temperature gauge sits on the reach grid (for model residuals).
+  t_gauge_reach_lo_.assign(gt, 0);
+  t_gauge_reach_w_.assign(gt, 0.0);
+  t_gauge_x_.assign(gt, 0.0);
+  for (int j = 0; j < gt; ++j) {
+    const double xg = seg.temperature_gauges[j].chainage_m;
+    t_gauge_x_[j] = xg;
+    if (n == 1 || xg <= x_.front()) continue;
+    if (xg >= x_.back()) { t_gauge_reach_lo_[j] = n - 2; t_gauge_reach_w_[j] = 1.0; continue; }
+    int i = 0;
+    while (i + 2 < n && xg > x_[i + 1]) ++i;
+    t_gauge_reach_lo_[j] = i;
+    t_gauge_reach_w_[j] = (xg - x_[i]) / (x_[i + 1] - x_[i]);
+  }
+  gauge_t_filtered_.assign(gt, 0.0);
+  gauge_t_init_.assign(gt, 0);
+  gauge_t_resid_.assign(gt, 0.0);
+
+  // Parcel ring: 4 parcels per reach, equal volumes along the bore.
+  double line_volume = 0.0;
+  for (int i = 0; i < n; ++i) line_volume += a0_[i] * dx_[i];
+  const int np = std::max(16, 4 * n);
+  parcel_dt_.assign(transport_ ? np : 0, 0.0);
+  parcel_volume_m3_ = line_volume / np;
+  reach_parcel_pos_.assign(n, 0.0);
+  {
+    double vol = 0.0;
+    for (int i = 0; i < n; ++i) {
+      reach_parcel_pos_[i] = (vol + 0.5 * a0_[i] * dx_[i]) / parcel_volume_m3_ - 0.5;
+      vol += a0_[i] * dx_[i];
+    }
+  }
+  parcels_init_ = false;
+  parcel_head_ = 0;
+  parcel_acc_m3_ = 0.0;
+  last_relax_dt_ = -1.0;
+  p_.assign(n, p_atm_);
+  temp_.assign(n, kWallReferenceTemperature_k);
+  temp_model_.assign(n, kWallReferenceTemperature_k);
+  inv_rho_area_.assign(n, 0.0);
+  dm_dp_.assign(gp, 0.0);
+  dm_dt_.assign(gt, 0.0);
+  dm_dlevel_.assign(seg.tanks.size(), 0.0);
+  sigma_p_.assign(gp, 0.0);
+  sigma_t_.assign(gt, 0.0);
+  sigma_level_.assign(seg.tanks.size(), 0.0);
+  for (int j = 0; j < gp; ++j) sigma_p_[j] = site.points[seg.pressure_gauges[j].point].random_sigma;
+  for (int j = 0; j < gt; ++j) sigma_t_[j] = site.points[seg.temperature_gauges[j].point].random_sigma;
+  for (size_t k = 0; k < seg.tanks.size(); ++k)
+    sigma_level_[k] = site.points[seg.tanks[k].level_point].random_sigma;
+  filter_decay_ = 0.0;
+  last_dt_ = -1.0;
+  result_ = InventoryResult{};
+  return true;
+}
+
+void SegmentInventory::UpdatePressures(const Aligner& aligner, double t) {
+  const SegmentSpec& seg = *seg_;
+  const int gp = static_cast<int>(seg.pressure_gauges.size());
+  for (int j = 0; j < gp; ++j) {
+    const int pt = seg.pressure_gauges[j].point;
+    const HeldValue& h = aligner.held(pt);
+    if (!h.has_value) {
+      result_.flags |= kInvPressureMissing;
+    } else if (!aligner.Usable(pt, t)) {
+      result_.flags |= kInvPressureStale;
+    }
+    const double p = h.has_value ? h.value_si : p_atm_;
+    gauge_p_[j] = p;
+    // Density at the gauge, at the temperature of the nearest reach (last tick).
+    gauge_head_rho_[j] = table_->Density(p, temp_[p_gauge_reach_[j]]);
+  }
+  const int n = static_cast<int>(x_.size());
+  const auto& gauges = seg.pressure_gauges;
+  for (int i = 0; i < n; ++i) {
+    const int lo = p_lo_[i], hi = p_hi_[i];
+    const double w = p_w_[i];
+    const double rho = (1.0 - w) * gauge_head_rho_[lo] + w * gauge_head_rho_[hi];
+    const double p_lin = (1.0 - w) * gauge_p_[lo] + w * gauge_p_[hi];
+    const double z_lin = (1.0 - w) * gauges[lo].elevation_m + w * gauges[hi].elevation_m;
+    p_[i] = p_lin - rho * kStandardGravity_m_s2 * (z_[i] - z_lin);
+  }
+}
+
+void SegmentInventory::UpdateTemperatures(const Aligner& aligner, double t, double dt,
+                                          double flow_kg_s) {
+  const SegmentSpec& seg = *seg_;
+  const int gt = static_cast<int>(seg.temperature_gauges.size());
+  const int n = static_cast<int>(x_.size());
+  if (dt != last_dt_) {
+    filter_decay_ = (seg.temperature_filter_s > 0.0 && dt > 0.0) ? std::exp(-dt / seg.temperature_filter_s) : 0.0;
+    last_dt_ = dt;
+  }
+  for (int j = 0; j < gt; ++j) {
+    const int pt = seg.temperature_gauges[j].point;
+    const HeldValue& h = aligner.held(pt);
+    if (!h.has_value) {
+      result_.flags |= kInvTemperatureMissing;
+      continue;
+    }
+    if (!aligner.Usable(pt, t)) result_.flags |= kInvTemperatureStale;
+    if (!gauge_t_init_[j]) {
+      gauge_t_filtered_[j] = h.value_si;
+      gauge_t_init_[j] = 1;
+
+    } else {
+      gauge_t_filtered_[j] = h.value_si + filter_decay_ * (gauge_t_filtered_[j] - h.value_si);
+    }
+  }
+  if (gt == 0) return;
+  const double* y = gauge_t_filtered_.data();
+  if (!transport_) {
+    for (int i = 0; i < n; ++i) temp_[i] = (1.0 - t_w_[i]) * y[t_lo_[i]] + t_w_[i] * y[t_hi_[i]];
+    return;
+  }
+  // Transport with relaxation towards ground temperature (parcel ring).
+  const double tg = seg.ground_temperature_k;
+  const int np = static_cast<int>(parcel_dt_.size());
+  double* cell = parcel_dt_.data();
+  if (!parcels_init_) {
+    // Start from the transmitters' linear profile.
+    double vol = 0.0;
+    int reach = 0;
+    for (int p = 0; p < np; ++p) {
+      const double vc = (p + 0.5) * parcel_volume_m3_;
+      while (reach + 1 < n && vol + a0_[reach] * dx_[reach] < vc) { vol += a0_[reach] * dx_[reach]; ++reach; }
+      cell[p] = (1.0 - t_w_[reach]) * y[t_lo_[reach]] + t_w_[reach] * y[t_hi_[reach]] - tg;
+    }
+    parcel_head_ = 0;
+    parcel_acc_m3_ = 0.0;
+    parcels_init_ = true;
+  } else if (dt > 0.0) {
+    if (dt != last_relax_dt_) {
+      relax_ = std::exp(-dt / seg.thermal_time_constant_s);
+      last_relax_dt_ = dt;
+    }
+    // Volume passed this tick, at the density of the entry reach.
+    const int entry = flow_kg_s >= 0.0 ? 0 : n - 1;
+    parcel_acc_m3_ += flow_kg_s * inv_rho_area_[entry] * a0_[entry] * dt;
+    int guard = 0;
+    while (parcel_acc_m3_ >= parcel_volume_m3_ && guard++ < np) {
+      parcel_head_ = parcel_head_ == 0 ? np - 1 : parcel_head_ - 1;
+      cell[parcel_head_] = y[0] - tg;  // new parcel at the inlet
+      parcel_acc_m3_ -= parcel_volume_m3_;
+    }
+    while (parcel_acc_m3_ <= -parcel_volume_m3_ && guard++ < np) {
+      cell[parcel_head_] = y[gt - 1] - tg;  // new parcel at the outlet
+      parcel_head_ = parcel_head_ + 1 == np ? 0 : parcel_head_ + 1;
+      parcel_acc_m3_ += parcel_volume_m3_;
+    }
+    if (guard >= np) parcel_acc_m3_ = 0.0;  // more than a line volume in one tick
+    for (int p = 0; p < np; ++p) cell[p] *= relax_;
+  }
+  // Reach temperatures from the parcels (the fraction carried over shifts them).
+  const double shift = parcel_acc_m3_ / parcel_volume_m3_;
+  for (int i = 0; i < n; ++i) {
+    double pos = reach_parcel_pos_[i] - shift;
+    if (pos < 0.0) pos = 0.0;
+    if (pos > np - 1.0) pos = np - 1.0;
+    int p0 = static_cast<int>(pos);
+    if (p0 > np - 2) p0 = np - 2;
+    const double w = pos - p0;
+    int k0 = parcel_head_ + p0;
+    if (k0 >= np) k0 -= np;
+    const int k1 = k0 + 1 == np ? 0 : k0 + 1;
+    temp_model_[i] = tg + (1.0 - w) * cell[k0] + w * cell[k1];
+  }
+  // Correct the modelled profile by the transmitters' residuals.
+  for (int j = 0; j < gt; ++j) {
+    const int i = t_gauge_reach_lo_[j];
+    const double w = t_gauge_reach_w_[j];
+    const double model = n == 1 ? temp_model_[0] : (1.0 - w) * temp_model_[i] + w * temp_model_[i + 1];
+    gauge_t_resid_[j] = y[j] - model;
+  }
+  const double* e = gauge_t_resid_.data();
+  for (int i = 0; i < n; ++i)
+    temp_[i] = temp_model_[i] + (1.0 - t_w_[i]) * e[t_lo_[i]] + t_w_[i] * e[t_hi_[i]];
+}
+
+const InventoryResult& SegmentInventory::Update(const Aligner& aligner, double t, double dt,
+                                                double flow_kg_s) {
+  result_.flags = 0;
+  UpdatePressures(aligner, t);
+  UpdateTemperatures(aligner, t, dt, flow_kg_s);
+
+  const int n = static_cast<int>(x_.size());
+  std::fill(dm_dp_.begin(), dm_dp_.end(), 0.0);
+  std::fill(dm_dt_.begin(), dm_dt_.end(), 0.0);
+  const bool have_t = !seg_->temperature_gauges.empty();
+  double mass = 0.0, p_sum = 0.0, t_sum = 0.0, len = 0.0;
+  bool clamped = false;
+  FluidState st;
+  for (int i = 0; i < n; ++i) {
+    const double p = p_[i], temp = temp_[i], dx = dx_[i];
+    clamped |= !table_->Evaluate(p, temp, &st);
+    const double fp = 1.0 + compliance_[i] * (p - p_atm_);
+    const double ft = 1.0 + wall_alpha2_[i] * (temp - kWallReferenceTemperature_k);
+    const double area = a0_[i] * fp * ft;
+    mass += st.density_kg_m3 * area * dx;
+    inv_rho_area_[i] = 1.0 / (st.density_kg_m3 * area);
+    const double dmdp = dx * (st.ddensity_dp_kg_m3_pa * area + st.density_kg_m3 * a0_[i] * compliance_[i] * ft);
+    const double dmdt = dx * (st.ddensity_dt_kg_m3_k * area + st.density_kg_m3 * a0_[i] * fp * wall_alpha2_[i]);
+    const double w = p_w_[i];
+    dm_dp_[p_lo_[i]] += (1.0 - w) * dmdp;
+    dm_dp_[p_hi_[i]] += w * dmdp;
+    if (have_t) {
+      const double wt = t_w_[i];
+      dm_dt_[t_lo_[i]] += (1.0 - wt) * dmdt;
+      dm_dt_[t_hi_[i]] += wt * dmdt;
+    }
+    p_sum += p * dx;
+    t_sum += temp * dx;
+    len += dx;
+  }
+  if (clamped) result_.flags |= kInvOutsideFluidTable;
+  result_.linepack_kg = mass;
+  result_.mean_pressure_pa = p_sum / len;
+  result_.mean_temperature_k = t_sum / len;
+
+  // Tanks.
+  double tank = 0.0;
+  double var_p = 0.0;
+  const auto& tanks = seg_->tanks;
+  for (size_t k = 0; k < tanks.size(); ++k) {
+    const TankSpec& tk = tanks[k];
+    const HeldValue& h = aligner.held(tk.level_point);
+    if (!h.has_value) { result_.flags |= kInvLevelMissing; dm_dlevel_[k] = 0.0; continue; }
+    if (!aligner.Usable(tk.level_point, t)) result_.flags |= kInvLevelStale;
+    double vol = 0.0, dvdl = 0.0;
+    if (!StrapVolume(tk.strapping, h.value_si, &vol, &dvdl)) result_.flags |= kInvLevelOutsideTable;
+    double temp_k = have_t ? gauge_t_filtered_[0] : kWallReferenceTemperature_k;
+    if (tk.temperature_point >= 0 && aligner.held(tk.temperature_point).has_value)
+      temp_k = aligner.value(tk.temperature_point);
+    const double rho = table_->Density(p_atm_, temp_k);
+    tank += vol * rho;
+    dm_dlevel_[k] = dvdl * rho;
+    var_p += (dm_dlevel_[k] * sigma_level_[k]) * (dm_dlevel_[k] * sigma_level_[k]);
+  }
+  result_.tank_kg = tank;
+
+  for (size_t j = 0; j < dm_dp_.size(); ++j) var_p += (dm_dp_[j] * sigma_p_[j]) * (dm_dp_[j] * sigma_p_[j]);
+  // First-order filter y += a (x - y), a = 1 - decay: var(y) = var(x) * a / (2 - a).
+  const double a = 1.0 - filter_decay_;
+  const double filter_var = a / (2.0 - a);
+  double var_t = 0.0;
+  for (size_t j = 0; j < dm_dt_.size(); ++j) var_t += (dm_dt_[j] * sigma_t_[j]) * (dm_dt_[j] * sigma_t_[j]);
+  result_.sigma_pressure_kg = std::sqrt(var_p);
+  result_.sigma_temperature_kg = std::sqrt(var_t * filter_var);
+  return result_;
+}
+
+}  // namespace holdfast

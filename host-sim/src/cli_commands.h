@@ -1,0 +1,23 @@
+// Subcommand registration for the host command. A subcommand file defines a
+// function `void Register(CLI::App& app, int* exit_code)` that adds itself and
+// sets *exit_code from its callback, and adds it with HOLDFAST_REGISTER_COMMAND.
+#pragma once
+
+#include <functional>
+#include <vector>
+
+#include <CLI/CLI.hpp>
+
+namespace holdfast::cli {
+
+using RegisterFn = std::function<void(CLI::App&, int*)>;
+std::vector<RegisterFn>& Registry();
+
+struct Registrar {
+  explicit Registrar(RegisterFn fn) { Registry().push_back(std::move(fn)); }
+};
+
+}  // namespace holdfast::cli
+
+#define HOLDFAST_REGISTER_COMMAND(fn) \
+  static ::holdfast::cli::Registrar holdfast_registrar_##fn(fn)

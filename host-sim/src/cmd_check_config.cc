@@ -1,0 +1,99 @@
+// `holdfast check-config FILE`: compile a site config and say what is in it,
+// or list every problem with its JSON path (exit code 2).
+#include <algorithm>
+#include <cmath>
+#include <cstdio>
+#include <memory>
+#include <string>
+#include <vector>
+
+#include "cli_commands.h"
+#include "holdfast/fluid.h"
+#include "holdfast/pipe.h"
+#include "holdfast/site.h"
+#include "holdfast/site_config.h"
+#include "site_file.h"
+
+namespace holdfast::cli {
+namespace {
+
+// Reaches as the inventory builds them: each section split into reaches of at
+// most reach_length_m.
+int ReachCount(const SegmentSpec& seg) {
+  int n = 0;
+  for (const PipeSection& s : seg.sections) {
+    n += std::max(1, static_cast<int>(std::ceil(s.length_m / seg.reach_length_m - 1e-9)));
+  }
+  return n;
+}
+
+// Korteweg wave speed of each section with the fluid at standard conditions
+// (an estimate: the operating pressure and temperature shift it a little for
+// liquids, and a gas's isothermal value is below its adiabatic one).
+void WaveSpeedRange(const Site& site, const SegmentSpec& seg, double* lo, double* hi) {
+  *lo = *hi = kNaN;
+  const FluidSpec& fluid = site.fluids[seg.fluid];
+  const double p = site.standard_pressure_pa;
+  const double t = site.standard_temperature_k;
+  const double rho = FluidDensity(fluid, p, t);
+  const double kappa = FluidCompressibility(fluid, p, t);
+  if (!(rho > 0.0) || !(kappa > 0.0)) return;
+  for (const PipeSection& s : seg.sections) {
+    const double a = WaveSpeed(1.0 / kappa, rho, s);
+    if (!std::isfinite(a)) continue;
+    if (std::isnan(*lo) || a < *lo) *lo = a;
+    if (std::isnan(*hi) || a > *hi) *hi = a;
+  }
+}
+
+void PrintSegment(const Site& site, const SegmentSpec& seg) {
+  int in = 0;
+  int out = 0;
+  for (const MeterSpec& m : seg.meters) (MeterRoleIsIn(m.role) ? in : out)++;
+  std::printf("  %s", seg.id.c_str());
+  if (seg.name != seg.id) std::printf(" \"%s\"", seg.name.c_str());
+  std::printf(": %.3f km in %zu section%s, %d reaches; fluid %s (%s); meters %d in / %d out; "
+              "%zu pressure, %zu temperature transmitters",
+              seg.length_m() / 1000.0, seg.sections.size(), seg.sections.size() == 1 ? "" : "s",
+              ReachCount(seg), site.fluid_ids[seg.fluid].c_str(),
+              FluidKindName(site.fluids[seg.fluid].kind), in, out, seg.pressure_gauges.size(),
+              seg.temperature_gauges.size());
+  if (!seg.tanks.empty()) std::printf("; %zu tank%s", seg.tanks.size(), seg.tanks.size() == 1 ? "" : "s");
+  double lo = 0.0;
+  double hi = 0.0;
+  WaveSpeedRange(site, seg, &lo, &hi);
+  if (std::isfinite(lo) && std::isfinite(hi)) {
+    if (std::lround(lo) == std::lround(hi)) {
+      std::printf("; wave speed ~%.0f m/s", lo);
+    } else {
+      std::printf("; wave speed ~%.0f-%.0f m/s", lo, hi);
+    }
+  }
+  std::printf("\n");
+}
+
+int RunCheckConfig(const std::string& file) {
+  Site site;
+  std::vector<ConfigProblem> problems;
+  if (!LoadSiteFile(file, &site, &problems)) {
+    for (const ConfigProblem& p : problems) std::printf("%s\n", p.ToString().c_str());
+    std::printf("%s: %zu problem%s\n", file.c_str(), problems.size(), problems.size() == 1 ? "" : "s");
+    return 2;
+  }
+  std::printf("%s: OK \u2014 %zu segment%s, %zu points\n", file.c_str(), site.segments.size(),
+              site.segments.size() == 1 ? "" : "s", site.points.size());
+  for (const SegmentSpec& seg : site.segments) PrintSegment(site, seg);
+  return 0;
+}
+
+void Register(CLI::App& app, int* exit_code) {
+  auto file = std::make_shared<std::string>();
+  CLI::App* cmd = app.add_subcommand(
+      "check-config", "Check a site config; print a summary, or every problem with its JSON path (exit 2)");
+  cmd->add_option("FILE", *file, "Site config (JSON, format holdfast-site/1)")->required();
+  cmd->callback([file, exit_code] { *exit_code = RunCheckConfig(*file); });
+}
+
+}  // namespace
+HOLDFAST_REGISTER_COMMAND(Register);
+}  // namespace holdfast::cli
