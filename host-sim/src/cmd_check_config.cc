@@ -64,9 +64,9 @@ void PrintSegment(const Site& site, const SegmentSpec& seg) {
   WaveSpeedRange(site, seg, &lo, &hi);
   if (std::isfinite(lo) && std::isfinite(hi)) {
     if (std::lround(lo) == std::lround(hi)) {
-      std::printf("; wave speed ~%.0f m/s", lo);
+      std::printf("; wave speed ~%.0f m/s at standard conditions", lo);
     } else {
-      std::printf("; wave speed ~%.0f-%.0f m/s", lo, hi);
+      std::printf("; wave speed ~%.0f-%.0f m/s at standard conditions", lo, hi);
     }
   }
   std::printf("\n");
