@@ -85,6 +85,8 @@ class SegmentBalance {
     double sum_imbalance_kg = 0.0, sum_duration_s = 0.0;  // complete buckets
     int64_t sum_ticks = 0;
     int pushes_since_resum = 0;
+    double pow_decay = -1.0, pow_value = 1.0;  // cache of decay^pow_ticks
+    int64_t pow_ticks = -2;
   };
   void Push(Ring& ring);
   void Advance(Ring& ring, int64_t index);

@@ -102,6 +102,8 @@ class DensityTable {
   // Density and derivatives at (P absolute, T). Returns false if clamped.
   bool Evaluate(double pressure_pa, double temperature_k, FluidState* out) const;
   double Density(double pressure_pa, double temperature_k) const;
+  // Density only, inline for the tick loop. Returns false if clamped.
+  inline bool DensityOnly(double pressure_pa, double temperature_k, double* rho) const;
 
   const Options& options() const { return options_; }
 
@@ -111,5 +113,26 @@ class DensityTable {
   double inv_dp_ = 0.0, inv_dt_ = 0.0;
   std::vector<double> rho_, drho_dp_, drho_dt_;  // [ip * nt_ + it]
 };
+
+inline bool DensityTable::DensityOnly(double pressure_pa, double temperature_k, double* rho) const {
+  const bool inside = pressure_pa >= options_.pressure_min_pa && pressure_pa <= options_.pressure_max_pa &&
+                      temperature_k >= options_.temperature_min_k && temperature_k <= options_.temperature_max_k;
+  const double xmax = static_cast<double>(np_ - 2), ymax = static_cast<double>(nt_ - 2);
+  double x = (pressure_pa - options_.pressure_min_pa) * inv_dp_;
+  double y = (temperature_k - options_.temperature_min_k) * inv_dt_;
+  x = x >= 0.0 ? x : 0.0;
+  y = y >= 0.0 ? y : 0.0;
+  // Cell index clamped to the last cell; the fraction may reach 1 at the far edge.
+  const double xi = x < xmax ? static_cast<double>(static_cast<int>(x)) : xmax;
+  const double yi = y < ymax ? static_cast<double>(static_cast<int>(y)) : ymax;
+  double fx = x - xi, fy = y - yi;
+  fx = fx < 1.0 ? fx : 1.0;
+  fy = fy < 1.0 ? fy : 1.0;
+  const double* r = rho_.data() + static_cast<std::size_t>(xi) * static_cast<std::size_t>(nt_) + static_cast<std::size_t>(yi);
+  const double lo = r[0] + fy * (r[1] - r[0]);
+  const double hi = r[nt_] + fy * (r[nt_ + 1] - r[nt_]);
+  *rho = lo + fx * (hi - lo);
+  return inside;
+}
 
 }  // namespace holdfast

@@ -119,7 +119,8 @@ class SegmentInventory {
   std::vector<int> t_lo_, t_hi_;
   std::vector<double> t_w_;
   // Per-reach state.
-  std::vector<double> p_, temp_, temp_model_, inv_rho_area_;
+  std::vector<double> p_, temp_, temp_model_, rho_;
+  uint64_t update_count_ = 0;
   // Parcel ring for temperature transport (values are T - Tg).
   std::vector<double> parcel_dt_;
   std::vector<double> reach_parcel_pos_;  // reach centre in parcel units, minus 0.5

@@ -168,8 +168,16 @@ void SegmentBalance::Step(double t, bool valid, const MeterFlow* meters, int met
     if (out.covered_s > 0.0 && ticks > 0.0) {
       const double w = out.covered_s;
       const double tick_s = w / ticks;
-      const double var = rand_q2 * tick_s * w + sys_q2 * w * w + var_p2 +
-                         var_t2 * (1.0 - std::pow(temperature_decay, ticks));
+      // decay^ticks, kept incrementally (ticks grows by one most of the time).
+      const int64_t n_ticks = r.sum_ticks + r.cur_ticks;
+      if (temperature_decay != r.pow_decay || n_ticks != r.pow_ticks + 1) {
+        r.pow_value = std::pow(temperature_decay, ticks);
+      } else {
+        r.pow_value *= temperature_decay;
+      }
+      r.pow_decay = temperature_decay;
+      r.pow_ticks = n_ticks;
+      const double var = rand_q2 * tick_s * w + sys_q2 * w * w + var_p2 + var_t2 * (1.0 - r.pow_value);
       out.imbalance_kg_s = out.imbalance_kg / w;
       out.sigma_kg = std::sqrt(var);
       out.mdl_kg_s = z_ * out.sigma_kg / w;

@@ -9,6 +9,7 @@ namespace holdfast {
 namespace {
 
 constexpr double kWallReferenceTemperature_k = 288.15;  // bore measured at 15 degC
+constexpr uint64_t kSensitivityEveryTicks = 16;         // refresh of dM/dP, dM/dT
 
 // Elevation at chainage x from the profile (linear, held beyond the ends).
 double ElevationAt(const std::vector<ElevationPoint>& profile, double x) {
@@ -197,7 +198,8 @@ bool SegmentInventory::Init(const Site& site, int segment, const DensityTable* t
   p_.assign(n, p_atm_);
   temp_.assign(n, kWallReferenceTemperature_k);
   temp_model_.assign(n, kWallReferenceTemperature_k);
-  inv_rho_area_.assign(n, 0.0);
+  rho_.assign(n, 1000.0);
+  update_count_ = 0;
   dm_dp_.assign(gp, 0.0);
   dm_dt_.assign(gt, 0.0);
   dm_dlevel_.assign(seg.tanks.size(), 0.0);
@@ -228,7 +230,7 @@ void SegmentInventory::UpdatePressures(const Aligner& aligner, double t) {
     const double p = h.has_value ? h.value_si : p_atm_;
     gauge_p_[j] = p;
     // Density at the gauge, at the temperature of the nearest reach (last tick).
-    gauge_head_rho_[j] = table_->Density(p, temp_[p_gauge_reach_[j]]);
+    table_->DensityOnly(p, temp_[p_gauge_reach_[j]], &gauge_head_rho_[j]);
   }
   const int n = static_cast<int>(x_.size());
   const auto& gauges = seg.pressure_gauges;
@@ -296,7 +298,7 @@ void SegmentInventory::UpdateTemperatures(const Aligner& aligner, double t, doub
     }
     // Volume passed this tick, at the density of the entry reach.
     const int entry = flow_kg_s >= 0.0 ? 0 : n - 1;
-    parcel_acc_m3_ += flow_kg_s * inv_rho_area_[entry] * a0_[entry] * dt;
+    parcel_acc_m3_ += flow_kg_s / rho_[entry] * dt;
     int guard = 0;
     while (parcel_acc_m3_ >= parcel_volume_m3_ && guard++ < np) {
       parcel_head_ = parcel_head_ == 0 ? np - 1 : parcel_head_ - 1;
@@ -344,33 +346,51 @@ const InventoryResult& SegmentInventory::Update(const Aligner& aligner, double t
   UpdateTemperatures(aligner, t, dt, flow_kg_s);
 
   const int n = static_cast<int>(x_.size());
-  std::fill(dm_dp_.begin(), dm_dp_.end(), 0.0);
-  std::fill(dm_dt_.begin(), dm_dt_.end(), 0.0);
   const bool have_t = !seg_->temperature_gauges.empty();
+  // Sensitivities move slowly with the state: refresh them on the first tick
+  // and every kSensitivityEveryTicks ticks; the mass itself every tick.
+  const bool refresh = (update_count_++ % kSensitivityEveryTicks) == 0;
   double mass = 0.0, p_sum = 0.0, t_sum = 0.0, len = 0.0;
   bool clamped = false;
-  FluidState st;
-  for (int i = 0; i < n; ++i) {
-    const double p = p_[i], temp = temp_[i], dx = dx_[i];
-    clamped |= !table_->Evaluate(p, temp, &st);
-    const double fp = 1.0 + compliance_[i] * (p - p_atm_);
-    const double ft = 1.0 + wall_alpha2_[i] * (temp - kWallReferenceTemperature_k);
-    const double area = a0_[i] * fp * ft;
-    mass += st.density_kg_m3 * area * dx;
-    inv_rho_area_[i] = 1.0 / (st.density_kg_m3 * area);
-    const double dmdp = dx * (st.ddensity_dp_kg_m3_pa * area + st.density_kg_m3 * a0_[i] * compliance_[i] * ft);
-    const double dmdt = dx * (st.ddensity_dt_kg_m3_k * area + st.density_kg_m3 * a0_[i] * fp * wall_alpha2_[i]);
-    const double w = p_w_[i];
-    dm_dp_[p_lo_[i]] += (1.0 - w) * dmdp;
-    dm_dp_[p_hi_[i]] += w * dmdp;
-    if (have_t) {
-      const double wt = t_w_[i];
-      dm_dt_[t_lo_[i]] += (1.0 - wt) * dmdt;
-      dm_dt_[t_hi_[i]] += wt * dmdt;
+  if (refresh) {
+    std::fill(dm_dp_.begin(), dm_dp_.end(), 0.0);
+    std::fill(dm_dt_.begin(), dm_dt_.end(), 0.0);
+    FluidState st;
+    for (int i = 0; i < n; ++i) {
+      const double p = p_[i], temp = temp_[i], dx = dx_[i];
+      clamped |= !table_->Evaluate(p, temp, &st);
+      const double fp = 1.0 + compliance_[i] * (p - p_atm_);
+      const double ft = 1.0 + wall_alpha2_[i] * (temp - kWallReferenceTemperature_k);
+      const double area = a0_[i] * fp * ft;
+      mass += st.density_kg_m3 * area * dx;
+      rho_[i] = st.density_kg_m3;
+      const double dmdp = dx * (st.ddensity_dp_kg_m3_pa * area + st.density_kg_m3 * a0_[i] * compliance_[i] * ft);
+      const double dmdt = dx * (st.ddensity_dt_kg_m3_k * area + st.density_kg_m3 * a0_[i] * fp * wall_alpha2_[i]);
+      const double w = p_w_[i];
+      dm_dp_[p_lo_[i]] += (1.0 - w) * dmdp;
+      dm_dp_[p_hi_[i]] += w * dmdp;
+      if (have_t) {
+        const double wt = t_w_[i];
+        dm_dt_[t_lo_[i]] += (1.0 - wt) * dmdt;
+        dm_dt_[t_hi_[i]] += wt * dmdt;
+      }
+      p_sum += p * dx;
+      t_sum += temp * dx;
+      len += dx;
     }
-    p_sum += p * dx;
-    t_sum += temp * dx;
-    len += dx;
+  } else {
+    for (int i = 0; i < n; ++i) {
+      const double p = p_[i], temp = temp_[i], dx = dx_[i];
+      double rho;
+      clamped |= !table_->DensityOnly(p, temp, &rho);
+      const double area = a0_[i] * (1.0 + compliance_[i] * (p - p_atm_)) *
+                          (1.0 + wall_alpha2_[i] * (temp - kWallReferenceTemperature_k));
+      mass += rho * area * dx;
+      rho_[i] = rho;
+      p_sum += p * dx;
+      t_sum += temp * dx;
+      len += dx;
+    }
   }
   if (clamped) result_.flags |= kInvOutsideFluidTable;
   result_.linepack_kg = mass;

@@ -150,7 +150,9 @@ void Monitor::TickSegment(SegmentRuntime& s, double t, double dt) {
             flags |= kSegMeterConditions;
             q *= s.standard_density_kg_m3;
           } else {
-            q *= s.table->Density(hp.value_si, ht.value_si);
+            double rho;
+            s.table->DensityOnly(hp.value_si, ht.value_si, &rho);
+            q *= rho;
           }
           break;
         }
