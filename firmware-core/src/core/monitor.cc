@@ -66,7 +66,9 @@ bool Monitor::Init(const Site& site, std::string* why) {
   tables_.clear();
   for (const FluidSpec& f : site.fluids) {
     DensityTable::Options o;
-    o.pressure_step_pa = 1.0e5;
+    // 1 bar x 1 K cells: below 1e-6 relative for liquids. Gas density bends
+    // more with pressure (Z), so its cells are 0.25 bar.
+    o.pressure_step_pa = f.kind == FluidKind::kNaturalGas ? 0.25e5 : 1.0e5;
     if (f.kind == FluidKind::kWater) o.temperature_min_k = 273.15;
     auto table = std::make_unique<DensityTable>();
     std::string reason;
