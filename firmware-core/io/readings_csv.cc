@@ -1,5 +1,6 @@
 #include "readings_csv.h"
 
+#include <cerrno>
 #include <charconv>
 #include <cmath>
 #include <cstring>
@@ -35,8 +36,15 @@ void CivilFromDays(int64_t z, int64_t* y, unsigned* m, unsigned* d) {
   *y = yy + (*m <= 2);
 }
 
+bool IsLeapYear(int y) { return (y % 4 == 0 && y % 100 != 0) || y % 400 == 0; }
+
+int DaysInMonth(int y, int m) {
+  static const int kDays[12] = {31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31};
+  return m == 2 && IsLeapYear(y) ? 29 : kDays[m - 1];
+}
+
 bool Digits(std::string_view s, size_t pos, size_t n, int* out) {
-  if (pos + n > s.size()) return false;
+  if (pos > s.size() || n > s.size() - pos) return false;
   int v = 0;
   for (size_t i = 0; i < n; ++i) {
     const char c = s[pos + i];
@@ -56,7 +64,10 @@ std::string_view Trim(std::string_view s) {
 bool ParseDouble(std::string_view s, double* out) {
   if (s.empty()) return false;
   const char* b = s.data();
-  if (*b == '+') ++b;
+  if (*b == '+') {
+    ++b;
+    if (b == s.data() + s.size() || *b == '+' || *b == '-') return false;  // "+", "+-5"
+  }
   const auto res = std::from_chars(b, s.data() + s.size(), *out);
   return res.ec == std::errc() && res.ptr == s.data() + s.size();
 }
@@ -90,11 +101,15 @@ bool ParseClock(std::string_view s, double* seconds) {
       int oh, om = 0;
       if (!Digits(s, pos + 1, 2, &oh)) return false;
       size_t q = pos + 3;
-      if (q < s.size() && s[q] == ':') ++q;
-      if (q < s.size()) {
+      if (q < s.size() && s[q] == ':') {
+        ++q;
+        if (!Digits(s, q, 2, &om)) return false;  // "+02:" needs its minutes
+        q += 2;
+      } else if (q < s.size()) {
         if (!Digits(s, q, 2, &om)) return false;
         q += 2;
       }
+      if (oh > 23 || om > 59) return false;
       offset = sign * (oh * 3600.0 + om * 60.0);
       pos = q;
     } else {
@@ -116,7 +131,7 @@ bool ParseTime(std::string_view text, double* epoch_s) {
     int y, mo, d;
     if (!Digits(text, 0, 4, &y) || !Digits(text, 5, 2, &mo) || text[7] != '-' || !Digits(text, 8, 2, &d))
       return false;
-    if (mo < 1 || mo > 12 || d < 1 || d > 31) return false;
+    if (mo < 1 || mo > 12 || d < 1 || d > DaysInMonth(y, mo)) return false;
     double sec;
     if (!ParseClock(text.substr(11), &sec)) return false;
     *epoch_s = static_cast<double>(DaysFromCivil(y, static_cast<unsigned>(mo), static_cast<unsigned>(d))) * 86400.0 + sec;
@@ -165,6 +180,17 @@ ReadingsCsvReader::~ReadingsCsvReader() {
 }
 
 bool ReadingsCsvReader::Open(const std::string& path, const Site& site, std::string* why) {
+  // A reader may be reopened: forget the previous file entirely.
+  if (file_ && owns_file_) std::fclose(file_);
+  file_ = nullptr;
+  owns_file_ = false;
+  begin_ = end_ = 0;
+  eof_ = false;
+  line_ = rows_ = bad_rows_ = bytes_read_ = 0;
+  errors_.clear();
+  last_id_.clear();
+  last_index_ = -1;
+  have_date_ = false;
   path_ = path;
   if (path == "-") {
     file_ = stdin;
@@ -195,48 +221,55 @@ bool ReadingsCsvReader::Open(const std::string& path, const Site& site, std::str
 }
 
 bool ReadingsCsvReader::NextLine(std::string_view* out) {
+  // A line longer than the limit is a bad row (counted in rows() too).
+  const auto long_line = [this] {
+    ++rows_;
+    Bad("line longer than " + std::to_string(kMaxLine) + " bytes");
+  };
   for (;;) {
     const char* start = buf_.data() + begin_;
     const void* nl = std::memchr(start, '\n', end_ - begin_);
-    if (nl) {
-      const size_t len = static_cast<size_t>(static_cast<const char*>(nl) - start);
-      *out = std::string_view(start, len);
-      begin_ += len + 1;
+    if (nl != nullptr || (eof_ && begin_ < end_)) {
+      // A complete line (or the last one, without a newline).
+      const size_t len = nl != nullptr ? static_cast<size_t>(static_cast<const char*>(nl) - start)
+                                       : end_ - begin_;
+      begin_ += nl != nullptr ? len + 1 : len;
       ++line_;
+      const size_t text_len = len > 0 && start[len - 1] == '\r' ? len - 1 : len;
+      if (text_len > kMaxLine) {
+        // Too long, though it fitted in the buffer: the same verdict as below.
+        long_line();
+        continue;
+      }
+      *out = std::string_view(start, len);
       return true;
     }
-    if (eof_) {
-      if (begin_ < end_) {
-        *out = std::string_view(start, end_ - begin_);
-        begin_ = end_;
-        ++line_;
-        return true;
-      }
-      return false;
-    }
-    // Move the partial line to the front and read more.
+    if (eof_) return false;
     const size_t rest = end_ - begin_;
-    if (rest >= kMaxLine) {
-      // An absurdly long line: report it and skip to its end.
+    if (rest > kMaxLine) {
+      // A line longer than the limit whose end is not in the buffer yet:
+      // report it and skip to its end (the buffer never grows).
       ++line_;
-      Bad("line longer than " + std::to_string(kMaxLine) + " bytes");
-      --line_;
-      begin_ = end_;
-      // Keep skipping until a newline shows up.
+      long_line();
+      begin_ = end_ = 0;
       for (;;) {
         const size_t got = std::fread(buf_.data(), 1, kBlock, file_);
         bytes_read_ += got;
-        if (got == 0) { eof_ = true; begin_ = end_ = 0; break; }
+        if (got == 0) {
+          eof_ = true;
+          break;
+        }
         const void* p = std::memchr(buf_.data(), '\n', got);
-        if (p) {
+        if (p != nullptr) {
           begin_ = static_cast<size_t>(static_cast<const char*>(p) - buf_.data()) + 1;
           end_ = got;
-          ++line_;
           break;
         }
       }
       continue;
     }
+    // Move the partial line (at most kMaxLine bytes) to the front and read
+    // the next block behind it; the buffer holds kBlock + kMaxLine bytes.
     std::memmove(buf_.data(), start, rest);
     begin_ = 0;
     end_ = rest;

@@ -1,0 +1,251 @@
+// The aligner: SI conversion on entry, sample-and-hold with staleness, and
+// the bookkeeping of readings it will not use (out of order, duplicate, late,
+// unknown, not finite, bad quality). Expected values are unit definitions
+// (NIST SP 811, exact) or hand arithmetic, noted beside each check.
+#include "holdfast/aligner.h"
+
+#include <cmath>
+#include <limits>
+#include <string>
+
+#include <gtest/gtest.h>
+
+#include "holdfast/reading.h"
+#include "holdfast/site.h"
+#include "holdfast/units.h"
+
+namespace holdfast {
+namespace {
+
+constexpr double kAtm_pa = 100900.0;  // a site's own atmospheric pressure, not the standard one
+
+PointSpec MakePoint(const std::string& id, PointKind kind, const char* unit, double staleness_s) {
+  PointSpec p;
+  p.id = id;
+  p.kind = kind;
+  p.unit_name = unit;
+  std::string why;
+  EXPECT_TRUE(LookUpUnit(unit, &p.unit, &why)) << why;
+  p.staleness_s = staleness_s;
+  return p;
+}
+
+// Points: 0 flow m3/h, 1 pressure bar gauge, 2 temperature degC, 3 level mm,
+// 4 mass flow t/h.
+Site SmallSite() {
+  Site site;
+  site.name = "aligner test";
+  site.atmospheric_pressure_pa = kAtm_pa;
+  site.points.push_back(MakePoint("FT", PointKind::kFlow, "m3/h", 30.0));
+  PointSpec pt = MakePoint("PT", PointKind::kPressure, "bar", 30.0);
+  pt.gauge = true;
+  pt.unit.offset = site.atmospheric_pressure_pa;  // gauge to absolute, as the config compiler does
+  site.points.push_back(pt);
+  site.points.push_back(MakePoint("TT", PointKind::kTemperature, "degC", 60.0));
+  site.points.push_back(MakePoint("LT", PointKind::kLevel, "mm", 10.0));
+  site.points.push_back(MakePoint("FTM", PointKind::kFlow, "t/h", 30.0));
+  return site;
+}
+
+enum : int32_t { kFlow = 0, kPressure = 1, kTemperature = 2, kLevel = 3, kMassFlow = 4 };
+
+Reading At(int32_t point, double t, double value, Quality q = Quality::kGood) {
+  Reading r;
+  r.point = point;
+  r.time_s = t;
+  r.value = value;
+  r.quality = q;
+  return r;
+}
+
+class AlignerTest : public ::testing::Test {
+ protected:
+  void SetUp() override {
+    site_ = SmallSite();
+    aligner_.Reset(site_);
+  }
+  Site site_;
+  Aligner aligner_;
+};
+
+TEST_F(AlignerTest, StartsEmptyAndUnusable) {
+  EXPECT_EQ(aligner_.point_count(), 5);
+  for (int p = 0; p < aligner_.point_count(); ++p) {
+    EXPECT_FALSE(aligner_.held(p).has_value);
+    EXPECT_FALSE(aligner_.Usable(p, 0.0));
+  }
+  EXPECT_EQ(aligner_.counters().ToString(),
+            "accepted=0 late=0 out_of_order=0 duplicate=0 unknown_point=0 not_finite=0 bad_quality=0");
+}
+
+TEST_F(AlignerTest, ConvertsToSiOnEntry) {
+  EXPECT_EQ(aligner_.Feed(At(kFlow, 10.0, 900.0)), FeedStatus::kAccepted);
+  EXPECT_EQ(aligner_.Feed(At(kPressure, 10.0, 2.5)), FeedStatus::kAccepted);
+  EXPECT_EQ(aligner_.Feed(At(kTemperature, 10.0, 18.0)), FeedStatus::kAccepted);
+  EXPECT_EQ(aligner_.Feed(At(kLevel, 10.0, 6543.2)), FeedStatus::kAccepted);
+  EXPECT_EQ(aligner_.Feed(At(kMassFlow, 10.0, 150.0)), FeedStatus::kAccepted);
+  // 900 m3/h = 900 / 3600 m3/s = 0.25 m3/s.
+  EXPECT_DOUBLE_EQ(aligner_.value(kFlow), 0.25);
+  // 2.5 bar gauge = 2.5e5 Pa + 100900 Pa atmospheric = 350900 Pa absolute.
+  EXPECT_DOUBLE_EQ(aligner_.value(kPressure), 350900.0);
+  // 18 degC = 291.15 K (exact offset 273.15).
+  EXPECT_DOUBLE_EQ(aligner_.value(kTemperature), 291.15);
+  // 6543.2 mm = 6.5432 m.
+  EXPECT_DOUBLE_EQ(aligner_.value(kLevel), 6.5432);
+  // 150 t/h = 150000 kg / 3600 s = 41.6666... kg/s.
+  EXPECT_NEAR(aligner_.value(kMassFlow), 150000.0 / 3600.0, 1e-12);
+  EXPECT_DOUBLE_EQ(aligner_.held(kPressure).time_s, 10.0);
+  EXPECT_EQ(aligner_.counters().accepted, 5u);
+  // The held value converts back to the raw unit with the same conversion.
+  EXPECT_NEAR(site_.points[kPressure].unit.FromSi(aligner_.value(kPressure)), 2.5, 1e-12);
+}
+
+TEST_F(AlignerTest, HoldsUntilStale) {
+  ASSERT_EQ(aligner_.Feed(At(kFlow, 100.0, 720.0)), FeedStatus::kAccepted);
+  // Staleness limit 30 s: usable up to and including t = 130, not after.
+  EXPECT_TRUE(aligner_.Usable(kFlow, 100.0));
+  EXPECT_TRUE(aligner_.Usable(kFlow, 115.0));
+  EXPECT_TRUE(aligner_.Usable(kFlow, 130.0));
+  EXPECT_FALSE(aligner_.Usable(kFlow, 130.001));
+  EXPECT_FALSE(aligner_.Usable(kFlow, 1000.0));
+  // Stale is not forgotten: the value is still held.
+  EXPECT_TRUE(aligner_.held(kFlow).has_value);
+  EXPECT_DOUBLE_EQ(aligner_.value(kFlow), 0.2);  // 720 / 3600
+  // A fresh reading makes it usable again; each point has its own limit.
+  ASSERT_EQ(aligner_.Feed(At(kFlow, 990.0, 360.0)), FeedStatus::kAccepted);
+  EXPECT_TRUE(aligner_.Usable(kFlow, 1000.0));
+  EXPECT_DOUBLE_EQ(aligner_.value(kFlow), 0.1);
+  ASSERT_EQ(aligner_.Feed(At(kTemperature, 990.0, 12.0)), FeedStatus::kAccepted);
+  EXPECT_TRUE(aligner_.Usable(kTemperature, 1050.0));   // 60 s limit
+  EXPECT_FALSE(aligner_.Usable(kTemperature, 1050.5));
+  ASSERT_EQ(aligner_.Feed(At(kLevel, 990.0, 100.0)), FeedStatus::kAccepted);
+  EXPECT_TRUE(aligner_.Usable(kLevel, 1000.0));          // 10 s limit
+  EXPECT_FALSE(aligner_.Usable(kLevel, 1000.5));
+}
+
+TEST_F(AlignerTest, OutOfOrderIsIgnoredAndCounted) {
+  ASSERT_EQ(aligner_.Feed(At(kFlow, 100.0, 900.0)), FeedStatus::kAccepted);
+  EXPECT_EQ(aligner_.Feed(At(kFlow, 99.5, 1800.0)), FeedStatus::kOutOfOrder);
+  EXPECT_EQ(aligner_.Feed(At(kFlow, 50.0, 0.0)), FeedStatus::kOutOfOrder);
+  // The newer value stays.
+  EXPECT_DOUBLE_EQ(aligner_.value(kFlow), 0.25);
+  EXPECT_DOUBLE_EQ(aligner_.held(kFlow).time_s, 100.0);
+  EXPECT_EQ(aligner_.counters().out_of_order, 2u);
+  EXPECT_EQ(aligner_.counters().accepted, 1u);
+  // Order is per point: an older time on another point is fine.
+  EXPECT_EQ(aligner_.Feed(At(kPressure, 50.0, 1.0)), FeedStatus::kAccepted);
+  EXPECT_EQ(aligner_.counters().out_of_order, 2u);
+}
+
+TEST_F(AlignerTest, DuplicateTimeIsIgnoredAndCounted) {
+  ASSERT_EQ(aligner_.Feed(At(kPressure, 200.0, 10.0)), FeedStatus::kAccepted);
+  EXPECT_EQ(aligner_.Feed(At(kPressure, 200.0, 10.0)), FeedStatus::kDuplicate);
+  // Same time, different value: still a duplicate, and the first value stays.
+  EXPECT_EQ(aligner_.Feed(At(kPressure, 200.0, 11.0)), FeedStatus::kDuplicate);
+  EXPECT_DOUBLE_EQ(aligner_.value(kPressure), 10.0e5 + kAtm_pa);
+  EXPECT_EQ(aligner_.counters().duplicate, 2u);
+  EXPECT_EQ(aligner_.counters().accepted, 1u);
+  EXPECT_EQ(aligner_.counters().out_of_order, 0u);
+}
+
+TEST_F(AlignerTest, LateReadingsAreAcceptedAndCounted) {
+  ASSERT_EQ(aligner_.Feed(At(kFlow, 100.0, 900.0)), FeedStatus::kAccepted);
+  aligner_.SetTickTime(110.0);
+  // Newer than the held value but not after the last tick: late, and used.
+  EXPECT_EQ(aligner_.Feed(At(kFlow, 105.0, 936.0)), FeedStatus::kLate);
+  EXPECT_DOUBLE_EQ(aligner_.value(kFlow), 0.26);  // 936 / 3600
+  EXPECT_DOUBLE_EQ(aligner_.held(kFlow).time_s, 105.0);
+  // Exactly at the tick time is late too (time <= last tick).
+  EXPECT_EQ(aligner_.Feed(At(kFlow, 110.0, 900.0)), FeedStatus::kLate);
+  // A first value for a point can be late as well.
+  EXPECT_EQ(aligner_.Feed(At(kTemperature, 20.0, 15.0)), FeedStatus::kLate);
+  EXPECT_TRUE(aligner_.held(kTemperature).has_value);
+  // After the tick time: accepted as normal.
+  EXPECT_EQ(aligner_.Feed(At(kFlow, 110.5, 900.0)), FeedStatus::kAccepted);
+  EXPECT_EQ(aligner_.counters().late, 3u);
+  EXPECT_EQ(aligner_.counters().accepted, 2u);
+  // Older than the held value: out of order even though it is also late.
+  EXPECT_EQ(aligner_.Feed(At(kFlow, 104.0, 900.0)), FeedStatus::kOutOfOrder);
+  EXPECT_EQ(aligner_.counters().late, 3u);
+  EXPECT_EQ(aligner_.counters().out_of_order, 1u);
+}
+
+TEST_F(AlignerTest, UnknownPointIndex) {
+  EXPECT_EQ(aligner_.Feed(At(-1, 10.0, 1.0)), FeedStatus::kUnknownPoint);
+  EXPECT_EQ(aligner_.Feed(At(5, 10.0, 1.0)), FeedStatus::kUnknownPoint);
+  EXPECT_EQ(aligner_.Feed(At(1000000, 10.0, 1.0)), FeedStatus::kUnknownPoint);
+  EXPECT_EQ(aligner_.counters().unknown_point, 3u);
+  EXPECT_EQ(aligner_.counters().accepted, 0u);
+  for (int p = 0; p < aligner_.point_count(); ++p) EXPECT_FALSE(aligner_.held(p).has_value);
+}
+
+TEST_F(AlignerTest, NonFiniteValuesAndTimesAreRejected) {
+  const double nan = std::numeric_limits<double>::quiet_NaN();
+  const double inf = std::numeric_limits<double>::infinity();
+  ASSERT_EQ(aligner_.Feed(At(kFlow, 100.0, 900.0)), FeedStatus::kAccepted);
+  EXPECT_EQ(aligner_.Feed(At(kFlow, 101.0, nan)), FeedStatus::kNotFinite);
+  EXPECT_EQ(aligner_.Feed(At(kFlow, 102.0, inf)), FeedStatus::kNotFinite);
+  EXPECT_EQ(aligner_.Feed(At(kFlow, 103.0, -inf)), FeedStatus::kNotFinite);
+  EXPECT_EQ(aligner_.Feed(At(kFlow, nan, 900.0)), FeedStatus::kNotFinite);
+  EXPECT_EQ(aligner_.Feed(At(kFlow, inf, 900.0)), FeedStatus::kNotFinite);
+  EXPECT_EQ(aligner_.counters().not_finite, 5u);
+  // Nothing changed: neither the value nor its time.
+  EXPECT_DOUBLE_EQ(aligner_.value(kFlow), 0.25);
+  EXPECT_DOUBLE_EQ(aligner_.held(kFlow).time_s, 100.0);
+  // An infinite time did not poison the ordering of later readings.
+  EXPECT_EQ(aligner_.Feed(At(kFlow, 104.0, 720.0)), FeedStatus::kAccepted);
+  EXPECT_DOUBLE_EQ(aligner_.value(kFlow), 0.2);
+}
+
+TEST_F(AlignerTest, BadQualityIsHeldButNotUsable) {
+  ASSERT_EQ(aligner_.Feed(At(kPressure, 100.0, 20.0)), FeedStatus::kAccepted);
+  EXPECT_TRUE(aligner_.Usable(kPressure, 100.0));
+  // A bad reading is accepted (it is newer) and held, but not usable.
+  EXPECT_EQ(aligner_.Feed(At(kPressure, 102.0, 0.0, Quality::kBad)), FeedStatus::kAccepted);
+  EXPECT_TRUE(aligner_.held(kPressure).has_value);
+  EXPECT_EQ(aligner_.held(kPressure).quality, Quality::kBad);
+  EXPECT_DOUBLE_EQ(aligner_.value(kPressure), kAtm_pa);  // 0 bar gauge
+  EXPECT_FALSE(aligner_.Usable(kPressure, 102.0));
+  EXPECT_EQ(aligner_.counters().bad_quality, 1u);
+  EXPECT_EQ(aligner_.counters().accepted, 2u);
+  // Uncertain is usable.
+  EXPECT_EQ(aligner_.Feed(At(kPressure, 104.0, 20.1, Quality::kUncertain)), FeedStatus::kAccepted);
+  EXPECT_TRUE(aligner_.Usable(kPressure, 104.0));
+  // A good reading restores it.
+  EXPECT_EQ(aligner_.Feed(At(kPressure, 106.0, 20.2)), FeedStatus::kAccepted);
+  EXPECT_TRUE(aligner_.Usable(kPressure, 106.0));
+  EXPECT_EQ(aligner_.counters().bad_quality, 1u);
+  // A late bad reading is counted both ways.
+  aligner_.SetTickTime(120.0);
+  EXPECT_EQ(aligner_.Feed(At(kPressure, 110.0, 0.0, Quality::kBad)), FeedStatus::kLate);
+  EXPECT_EQ(aligner_.counters().bad_quality, 2u);
+  EXPECT_EQ(aligner_.counters().late, 1u);
+  EXPECT_FALSE(aligner_.Usable(kPressure, 120.0));
+}
+
+TEST_F(AlignerTest, ResetForgetsEverything) {
+  ASSERT_EQ(aligner_.Feed(At(kFlow, 100.0, 900.0)), FeedStatus::kAccepted);
+  aligner_.Feed(At(kFlow, 90.0, 900.0));
+  aligner_.SetTickTime(200.0);
+  aligner_.Reset(site_);
+  EXPECT_FALSE(aligner_.held(kFlow).has_value);
+  EXPECT_EQ(aligner_.counters().accepted, 0u);
+  EXPECT_EQ(aligner_.counters().out_of_order, 0u);
+  // The tick time is forgotten too: an early reading is not late.
+  EXPECT_EQ(aligner_.Feed(At(kFlow, 50.0, 900.0)), FeedStatus::kAccepted);
+}
+
+TEST(AlignerNames, StatusAndQualityNames) {
+  EXPECT_STREQ(FeedStatusName(FeedStatus::kAccepted), "accepted");
+  EXPECT_STREQ(FeedStatusName(FeedStatus::kLate), "late");
+  EXPECT_STREQ(FeedStatusName(FeedStatus::kOutOfOrder), "out_of_order");
+  EXPECT_STREQ(FeedStatusName(FeedStatus::kDuplicate), "duplicate");
+  EXPECT_STREQ(FeedStatusName(FeedStatus::kUnknownPoint), "unknown_point");
+  EXPECT_STREQ(FeedStatusName(FeedStatus::kNotFinite), "not_finite");
+  EXPECT_STREQ(QualityName(Quality::kGood), "good");
+  EXPECT_STREQ(QualityName(Quality::kUncertain), "uncertain");
+  EXPECT_STREQ(QualityName(Quality::kBad), "bad");
+}
+
+}  // namespace
+}  // namespace holdfast
