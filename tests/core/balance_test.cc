@@ -104,9 +104,10 @@ TEST(Balance, WindowUncertaintyMatchesMonteCarlo) {
   std::normal_distribution<double> n01(0.0, 1.0);
   const int runs = 1500, warmup = 400, ticks = 320;
   double sum2[2] = {0, 0}, sigma_sum[2] = {0, 0};
+  Monitor m;
+  ASSERT_TRUE(m.Init(site, nullptr));
   for (int run = 0; run < runs; ++run) {
-    Monitor m;
-    ASSERT_TRUE(m.Init(site, nullptr));
+    m.Reset();
     const double bias_in = ss * n01(rng), bias_out = ss * n01(rng);
     const double bias_p = 5000.0 * n01(rng);  // a fixed offset cancels in differences
     for (int k = 0; k < warmup + ticks; ++k) {

@@ -70,6 +70,10 @@ class Monitor {
   // the monitor. Returns false with the reason.
   bool Init(const Site& site, std::string* why);
 
+  // Forgets every reading and all history (held values, filters, windows)
+  // but keeps the compiled tables: the state right after Init.
+  void Reset();
+
   FeedStatus Feed(const Reading& r) { return aligner_.Feed(r); }
   // Balances every segment at tick time t (seconds since the epoch).
   // Ticks must increase; a tick not after the previous one is ignored.
@@ -95,6 +99,7 @@ class Monitor {
     SegmentTick tick;
   };
   void TickSegment(SegmentRuntime& s, double t, double dt);
+  bool InitSegments(std::string* why);
 
   const Site* site_ = nullptr;
   Aligner aligner_;

@@ -78,6 +78,17 @@ bool Monitor::Init(const Site& site, std::string* why) {
     }
     tables_.push_back(std::move(table));
   }
+  return InitSegments(why);
+}
+
+void Monitor::Reset() {
+  if (site_ == nullptr) return;
+  aligner_.Reset(*site_);
+  InitSegments(nullptr);  // succeeded in Init with the same site
+}
+
+bool Monitor::InitSegments(std::string* why) {
+  const Site& site = *site_;
   segments_.clear();
   segments_.resize(site.segments.size());
   for (size_t i = 0; i < site.segments.size(); ++i) {
