@@ -105,7 +105,16 @@ std::string Closest(const std::string& name, const std::vector<std::string>& can
     }
   }
   const std::size_t limit = std::max<std::size_t>(1, std::min<std::size_t>(3, name.size() / 3));
-  return (!best.empty() && best_d <= limit) ? best : std::string();
+  if (!best.empty() && best_d <= limit) return best;
+  // A name missing its unit suffix ("youngs_modulus" for "youngs_modulus_gpa").
+  if (name.size() >= 3) {
+    for (const std::string& c : candidates) {
+      if (c.size() > name.size() && c.compare(0, name.size(), name) == 0 && c[name.size()] == '_') {
+        return c;
+      }
+    }
+  }
+  return std::string();
 }
 
 std::string ListNames(const std::vector<std::string>& names) {

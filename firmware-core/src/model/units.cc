@@ -6,7 +6,7 @@
 //   1 bbl  = 42 gal = 0.158987294928 m3    (U.S. oil barrel, exact)
 //   1 bar  = 1e5 Pa                         (exact)
 //   1 kgf  = 9.80665 N                      (exact, standard gravity)
-//   1 psi  = 1 lbf/in2 = 0.45359237 * 9.80665 / 0.0254^2 Pa = 6894.757293168 Pa
+//   1 psi  = 1 lbf/in2 = 0.45359237 * 9.80665 / 0.0254^2 Pa = 6894.757293168361 Pa
 //   t/degC = T/K - 273.15, t/degF = 1.8 * T/K - 459.67 (exact)
 #include <algorithm>
 #include <cctype>
@@ -25,7 +25,7 @@ constexpr double kFoot_m = 0.3048;
 constexpr double kInch_m = 0.0254;
 constexpr double kGallon_m3 = 3.785411784e-3;
 constexpr double kBarrel_m3 = 0.158987294928;
-constexpr double kPsi_pa = 6894.757293168;
+constexpr double kPsi_pa = kPound_kg * kStandardGravity_m_s2 / (kInch_m * kInch_m);  // 6894.757293168...
 constexpr double kKgfPerCm2_pa = 98066.5;  // 9.80665 N / 1e-4 m2
 constexpr double kMinute_s = 60.0;
 constexpr double kHour_s = 3600.0;
