@@ -271,7 +271,11 @@ void SegmentInventory::UpdateTemperatures(const Aligner& aligner, double t, doub
   }
   if (gt == 0) return;
   const double* y = gauge_t_filtered_.data();
-  if (!transport_) {
+  bool all_init = true;
+  for (int j = 0; j < gt; ++j) all_init = all_init && gauge_t_init_[j];
+  // Transport starts once every transmitter has reported (the parcels are
+  // seeded from their profile); until then the profile is linear.
+  if (!transport_ || !all_init) {
     for (int i = 0; i < n; ++i) temp_[i] = (1.0 - t_w_[i]) * y[t_lo_[i]] + t_w_[i] * y[t_hi_[i]];
     return;
   }
