@@ -200,11 +200,12 @@ TEST_F(AlignerTest, NonFiniteValuesAndTimesAreRejected) {
 TEST_F(AlignerTest, BadQualityIsHeldButNotUsable) {
   ASSERT_EQ(aligner_.Feed(At(kPressure, 100.0, 20.0)), FeedStatus::kAccepted);
   EXPECT_TRUE(aligner_.Usable(kPressure, 100.0));
-  // A bad reading is accepted (it is newer) and held, but not usable.
+  // A bad reading is accepted (it is newer) and makes the point unusable,
+  // but never replaces the last good value.
   EXPECT_EQ(aligner_.Feed(At(kPressure, 102.0, 0.0, Quality::kBad)), FeedStatus::kAccepted);
   EXPECT_TRUE(aligner_.held(kPressure).has_value);
   EXPECT_EQ(aligner_.held(kPressure).quality, Quality::kBad);
-  EXPECT_DOUBLE_EQ(aligner_.value(kPressure), kAtm_pa);  // 0 bar gauge
+  EXPECT_DOUBLE_EQ(aligner_.value(kPressure), 20.0e5 + kAtm_pa);  // still 20 bar gauge
   EXPECT_FALSE(aligner_.Usable(kPressure, 102.0));
   EXPECT_EQ(aligner_.counters().bad_quality, 1u);
   EXPECT_EQ(aligner_.counters().accepted, 2u);

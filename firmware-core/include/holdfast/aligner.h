@@ -33,11 +33,16 @@ struct AlignerCounters {
   std::string ToString() const;
 };
 
+// What the aligner holds for one point. A bad-quality reading never replaces
+// the held value: it marks the point unusable until a good or uncertain
+// reading arrives (the last good value stays for reference).
 struct HeldValue {
-  double value_si = 0.0;
-  double time_s = 0.0;
-  Quality quality = Quality::kBad;
-  bool has_value = false;
+  double value_si = 0.0;     // last good or uncertain value, SI
+  double time_s = 0.0;       // its time
+  double last_time_s = 0.0;  // newest reading of any quality (ordering)
+  Quality quality = Quality::kBad;  // quality of the newest reading
+  bool has_value = false;    // a good or uncertain value has arrived
+  bool seen = false;         // any reading has arrived
 };
 
 class Aligner {

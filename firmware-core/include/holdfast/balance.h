@@ -64,6 +64,8 @@ class SegmentBalance {
   double residual_kg_s() const { return residual_kg_s_; }
   double inventory_rate_kg_s() const { return inventory_rate_kg_s_; }
   double net_flow_kg_s() const { return net_flow_kg_s_; }
+  // True when this tick's residual is a real difference (not a first or re-baselined tick).
+  bool has_difference() const { return has_difference_; }
   int window_count() const { return static_cast<int>(windows_.size()); }
   const WindowResult& window(int i) const { return results_[i]; }
   double z() const { return z_; }
@@ -98,6 +100,7 @@ class SegmentBalance {
   bool have_prev_ = false;
   double prev_t_ = 0.0, prev_net_kg_s_ = 0.0, prev_inventory_kg_ = 0.0;
   double residual_kg_s_ = 0.0, inventory_rate_kg_s_ = 0.0, net_flow_kg_s_ = 0.0;
+  bool has_difference_ = false;
 };
 
 // Standard normal quantile: Newton iteration on Phi(x) = erfc(-x/sqrt 2)/2,

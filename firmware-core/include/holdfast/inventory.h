@@ -19,10 +19,11 @@
 // ground model the profile is linear between filtered transmitters. With a
 // ground temperature Tg and a thermal time constant tau, product parcels are
 // carried down the line with the flow and relax towards Tg as exp(-dt/tau):
-// the line is a ring of equal-volume parcels (4 per reach) in the volume
-// coordinate, shifted by whole parcels as the metered volume passes, with the
+// each stretch between lateral meters (deliveries, injections) is a ring of
+// equal-volume parcels (about 4 per reach) in the volume coordinate, shifted
+// by whole parcels as the stretch's own metered volume passes, with the
 // fraction carried over, so a temperature front moves without numerical
-// diffusion. The transmitters then only correct the modelled profile by a
+// diffusion and slows down past a delivery. The transmitters then only correct the modelled profile by a
 // linear interpolation of their residuals.
 #pragma once
 
@@ -72,9 +73,11 @@ class SegmentInventory {
   bool Init(const Site& site, int segment, const DensityTable* table, std::string* why);
 
   // Computes the inventory at tick time t (dt since the previous tick, 0 on
-  // the first) from the aligner's held values. `flow_kg_s` is the mass flow
-  // entering at the inlet (for temperature transport). Allocates nothing.
-  const InventoryResult& Update(const Aligner& aligner, double t, double dt, double flow_kg_s);
+  // the first) from the aligner's held values. `meter_flow_kg_s` holds the
+  // signed mass flow of each of the segment's meters (+ into the control
+  // volume), in SegmentSpec::meters order, for temperature transport.
+  // Allocates nothing.
+  const InventoryResult& Update(const Aligner& aligner, double t, double dt, const double* meter_flow_kg_s);
 
   const InventoryResult& result() const { return result_; }
   // Sensitivities from the last update: kg per Pa of each pressure gauge,
@@ -100,7 +103,7 @@ class SegmentInventory {
 
  private:
   void UpdatePressures(const Aligner& aligner, double t);
-  void UpdateTemperatures(const Aligner& aligner, double t, double dt, double flow_kg_s);
+  void UpdateTemperatures(const Aligner& aligner, double t, double dt, const double* meter_flow_kg_s);
 
   const Site* site_ = nullptr;
   const SegmentSpec* seg_ = nullptr;
@@ -121,11 +124,18 @@ class SegmentInventory {
   // Per-reach state.
   std::vector<double> p_, temp_, temp_model_, rho_;
   uint64_t update_count_ = 0;
-  // Parcel ring for temperature transport (values are T - Tg).
+  // Parcel rings for temperature transport (values are T - Tg), one per
+  // stretch between lateral meters.
+  struct Stretch {
+    int first_cell = 0, cells = 0, head = 0;
+    double cell_m3 = 0.0, acc_m3 = 0.0;
+    int entry_reach = 0, exit_reach = 0;
+    std::vector<int> feeding_meters;  // meters whose flow passes through this stretch
+  };
+  std::vector<Stretch> stretches_;
   std::vector<double> parcel_dt_;
-  std::vector<double> reach_parcel_pos_;  // reach centre in parcel units, minus 0.5
-  int parcel_head_ = 0;
-  double parcel_volume_m3_ = 0.0, parcel_acc_m3_ = 0.0;
+  std::vector<int> reach_stretch_;
+  std::vector<double> reach_parcel_pos_;  // reach centre in its stretch's parcel units, minus 0.5
   double relax_ = 1.0, last_relax_dt_ = -1.0;
   bool parcels_init_ = false;
   // Per-gauge state.
@@ -139,6 +149,8 @@ class SegmentInventory {
   std::vector<double> t_gauge_reach_w_;
   std::vector<double> t_gauge_x_;
   std::vector<double> sigma_p_, sigma_t_, sigma_level_;
+  std::vector<double> tank_t_filtered_, tank_sigma_t_;
+  std::vector<uint8_t> tank_t_init_;
   double last_dt_ = -1.0;
   std::vector<double> dm_dp_, dm_dt_, dm_dlevel_;
   InventoryResult result_;

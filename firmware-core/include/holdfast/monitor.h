@@ -17,6 +17,7 @@
 
 #include "holdfast/aligner.h"
 #include "holdfast/balance.h"
+#include "holdfast/decision.h"
 #include "holdfast/inventory.h"
 #include "holdfast/reading.h"
 #include "holdfast/site.h"
@@ -55,6 +56,8 @@ struct SegmentTick {
   double mean_temperature_k = 0.0;
   int window_count = 0;
   std::array<WindowResult, kMaxWindows> windows{};
+  bool decision_enabled = false;     // needs the segment's nominal flow
+  DecisionResult decision;
 
   std::string ToString() const;  // one line, for logs and test failures
 };
@@ -66,9 +69,16 @@ class Monitor {
   Monitor(const Monitor&) = delete;
   Monitor& operator=(const Monitor&) = delete;
 
-  // Builds density tables, reach grids and windows. The site must outlive
-  // the monitor. Returns false with the reason.
-  bool Init(const Site& site, std::string* why);
+  struct Options {
+    // The leak decision (detector bank, false-alarm budget, learning).
+    DecisionOptions decision;
+    bool IsValid(std::string* why) const { return decision.IsValid(why); }
+  };
+
+  // Builds density tables, reach grids, windows and the threshold table. The
+  // site must outlive the monitor. Returns false with the reason.
+  bool Init(const Site& site, std::string* why) { return Init(site, Options{}, why); }
+  bool Init(const Site& site, const Options& options, std::string* why);
 
   // Forgets every reading and all history (held values, filters, windows)
   // but keeps the compiled tables: the state right after Init.
@@ -93,7 +103,10 @@ class Monitor {
     const SegmentSpec* spec = nullptr;
     SegmentInventory inventory;
     SegmentBalance balance;
+    SegmentDecision decision;
+    bool decision_enabled = false;
     std::vector<MeterFlow> flows;
+    std::vector<double> signed_flow;  // kg/s, + into the control volume
     double standard_density_kg_m3 = 0.0;
     const DensityTable* table = nullptr;
     SegmentTick tick;
@@ -104,6 +117,8 @@ class Monitor {
   const Site* site_ = nullptr;
   Aligner aligner_;
   std::vector<std::unique_ptr<DensityTable>> tables_;  // one per fluid
+  Options options_;
+  CusumThresholdTable thresholds_;
   std::vector<SegmentRuntime> segments_;
   double last_t_ = 0.0;
   bool started_ = false;

@@ -53,21 +53,26 @@ FeedStatus Aligner::Feed(const Reading& r) {
     return FeedStatus::kNotFinite;
   }
   HeldValue& h = held_[r.point];
-  if (h.has_value) {
-    if (r.time_s < h.time_s) {
+  if (h.seen) {
+    if (r.time_s < h.last_time_s) {
       ++counters_.out_of_order;
       return FeedStatus::kOutOfOrder;
     }
-    if (r.time_s == h.time_s) {
+    if (r.time_s == h.last_time_s) {
       ++counters_.duplicate;
       return FeedStatus::kDuplicate;
     }
   }
-  h.value_si = site_->points[r.point].unit.ToSi(r.value);
-  h.time_s = r.time_s;
+  h.seen = true;
+  h.last_time_s = r.time_s;
   h.quality = r.quality;
-  h.has_value = true;
-  if (r.quality == Quality::kBad) ++counters_.bad_quality;
+  if (r.quality == Quality::kBad) {
+    ++counters_.bad_quality;
+  } else {
+    h.value_si = site_->points[r.point].unit.ToSi(r.value);
+    h.time_s = r.time_s;
+    h.has_value = true;
+  }
   if (r.time_s <= tick_time_s_) {
     ++counters_.late;
     return FeedStatus::kLate;

@@ -121,6 +121,7 @@ void SegmentBalance::Step(double t, bool valid, const MeterFlow* meters, int met
   double net = 0.0;
   for (int m = 0; m < meter_count; ++m) net += meters[m].flow_kg_s;
   net_flow_kg_s_ = net;
+  has_difference_ = false;
   if (!valid) {
     have_prev_ = false;
     residual_kg_s_ = inventory_rate_kg_s_ = 0.0;
@@ -134,6 +135,7 @@ void SegmentBalance::Step(double t, bool valid, const MeterFlow* meters, int met
     imbalance = flow_kg - dm;
     residual_kg_s_ = imbalance / dt;
     inventory_rate_kg_s_ = dm / dt;
+    has_difference_ = true;
   } else {
     residual_kg_s_ = inventory_rate_kg_s_ = 0.0;
   }

@@ -177,23 +177,61 @@ bool SegmentInventory::Init(const Site& site, int segment, const DensityTable* t
   gauge_t_init_.assign(gt, 0);
   gauge_t_resid_.assign(gt, 0.0);
 
-  // Parcel ring: 4 parcels per reach, equal volumes along the bore.
-  double line_volume = 0.0;
-  for (int i = 0; i < n; ++i) line_volume += a0_[i] * dx_[i];
-  const int np = std::max(16, 4 * n);
-  parcel_dt_.assign(transport_ ? np : 0, 0.0);
-  parcel_volume_m3_ = line_volume / np;
-  reach_parcel_pos_.assign(n, 0.0);
+  // Parcel rings: stretches between lateral meters, about 4 parcels per reach.
   {
-    double vol = 0.0;
-    for (int i = 0; i < n; ++i) {
-      reach_parcel_pos_[i] = (vol + 0.5 * a0_[i] * dx_[i]) / parcel_volume_m3_ - 0.5;
-      vol += a0_[i] * dx_[i];
+    std::vector<double> cuts;  // chainages of laterals strictly inside the line
+    const double length = x_.back() + 0.5 * dx_.back();
+    for (const MeterSpec& m : seg.meters) {
+      if ((m.role == MeterRole::kDelivery || m.role == MeterRole::kInjection) && m.chainage_m > 0.0 &&
+          m.chainage_m < length)
+        cuts.push_back(m.chainage_m);
     }
+    std::sort(cuts.begin(), cuts.end());
+    cuts.erase(std::unique(cuts.begin(), cuts.end()), cuts.end());
+    const int ns = static_cast<int>(cuts.size()) + 1;
+    stretches_.assign(transport_ ? ns : 0, Stretch{});
+    reach_stretch_.assign(n, 0);
+    for (int i = 0; i < n; ++i) {
+      int st = 0;
+      while (st < static_cast<int>(cuts.size()) && x_[i] > cuts[st]) ++st;
+      reach_stretch_[i] = st;
+    }
+    reach_parcel_pos_.assign(n, 0.0);
+    int first_cell = 0;
+    for (int st = 0; st < static_cast<int>(stretches_.size()); ++st) {
+      Stretch& sc = stretches_[st];
+      double vol = 0.0;
+      int reaches = 0;
+      sc.entry_reach = -1;
+      for (int i = 0; i < n; ++i) {
+        if (reach_stretch_[i] != st) continue;
+        if (sc.entry_reach < 0) sc.entry_reach = i;
+        sc.exit_reach = i;
+        vol += a0_[i] * dx_[i];
+        ++reaches;
+      }
+      if (sc.entry_reach < 0) { sc.entry_reach = sc.exit_reach = 0; }
+      sc.cells = std::max(8, 4 * reaches);
+      sc.cell_m3 = vol > 0.0 ? vol / sc.cells : 1.0;
+      sc.first_cell = first_cell;
+      first_cell += sc.cells;
+      double v = 0.0;
+      for (int i = 0; i < n; ++i) {
+        if (reach_stretch_[i] != st) continue;
+        reach_parcel_pos_[i] = (v + 0.5 * a0_[i] * dx_[i]) / sc.cell_m3 - 0.5;
+        v += a0_[i] * dx_[i];
+      }
+      const double start = st == 0 ? 0.0 : cuts[st - 1];
+      for (size_t m = 0; m < seg.meters.size(); ++m) {
+        const MeterSpec& ms = seg.meters[m];
+        const bool lateral = ms.role == MeterRole::kDelivery || ms.role == MeterRole::kInjection;
+        if (ms.role == MeterRole::kInlet || (lateral && ms.chainage_m <= start && (st > 0 || ms.chainage_m <= 0.0)))
+          sc.feeding_meters.push_back(static_cast<int>(m));
+      }
+    }
+    parcel_dt_.assign(transport_ ? first_cell : 0, 0.0);
   }
   parcels_init_ = false;
-  parcel_head_ = 0;
-  parcel_acc_m3_ = 0.0;
   last_relax_dt_ = -1.0;
   p_.assign(n, p_atm_);
   temp_.assign(n, kWallReferenceTemperature_k);
@@ -208,8 +246,14 @@ bool SegmentInventory::Init(const Site& site, int segment, const DensityTable* t
   sigma_level_.assign(seg.tanks.size(), 0.0);
   for (int j = 0; j < gp; ++j) sigma_p_[j] = site.points[seg.pressure_gauges[j].point].random_sigma;
   for (int j = 0; j < gt; ++j) sigma_t_[j] = site.points[seg.temperature_gauges[j].point].random_sigma;
-  for (size_t k = 0; k < seg.tanks.size(); ++k)
+  tank_t_filtered_.assign(seg.tanks.size(), 0.0);
+  tank_t_init_.assign(seg.tanks.size(), 0);
+  tank_sigma_t_.assign(seg.tanks.size(), 0.0);
+  for (size_t k = 0; k < seg.tanks.size(); ++k) {
     sigma_level_[k] = site.points[seg.tanks[k].level_point].random_sigma;
+    if (seg.tanks[k].temperature_point >= 0)
+      tank_sigma_t_[k] = site.points[seg.tanks[k].temperature_point].random_sigma;
+  }
   filter_decay_ = 0.0;
   last_dt_ = -1.0;
   result_ = InventoryResult{};
@@ -245,7 +289,7 @@ void SegmentInventory::UpdatePressures(const Aligner& aligner, double t) {
 }
 
 void SegmentInventory::UpdateTemperatures(const Aligner& aligner, double t, double dt,
-                                          double flow_kg_s) {
+                                          const double* meter_flow_kg_s) {
   const SegmentSpec& seg = *seg_;
   const int gt = static_cast<int>(seg.temperature_gauges.size());
   const int n = static_cast<int>(x_.size());
@@ -279,57 +323,82 @@ void SegmentInventory::UpdateTemperatures(const Aligner& aligner, double t, doub
     for (int i = 0; i < n; ++i) temp_[i] = (1.0 - t_w_[i]) * y[t_lo_[i]] + t_w_[i] * y[t_hi_[i]];
     return;
   }
-  // Transport with relaxation towards ground temperature (parcel ring).
+  // Transport with relaxation towards ground temperature (parcel rings).
   const double tg = seg.ground_temperature_k;
-  const int np = static_cast<int>(parcel_dt_.size());
   double* cell = parcel_dt_.data();
+  const int ns = static_cast<int>(stretches_.size());
   if (!parcels_init_) {
-    // Start from the transmitters' linear profile.
-    double vol = 0.0;
-    int reach = 0;
-    for (int p = 0; p < np; ++p) {
-      const double vc = (p + 0.5) * parcel_volume_m3_;
-      while (reach + 1 < n && vol + a0_[reach] * dx_[reach] < vc) { vol += a0_[reach] * dx_[reach]; ++reach; }
-      cell[p] = (1.0 - t_w_[reach]) * y[t_lo_[reach]] + t_w_[reach] * y[t_hi_[reach]] - tg;
+    // Seed every parcel from the transmitters' linear profile.
+    for (int i = 0; i < n; ++i) temp_model_[i] = (1.0 - t_w_[i]) * y[t_lo_[i]] + t_w_[i] * y[t_hi_[i]];
+    for (const Stretch& sc : stretches_) {
+      for (int p = 0; p < sc.cells; ++p) {
+        // Parcel centre in reach terms: find the reach holding it.
+        const double pos = p;  // parcel index ~ reach_parcel_pos_ units
+        int best = sc.entry_reach;
+        for (int i = sc.entry_reach; i <= sc.exit_reach; ++i)
+          if (reach_parcel_pos_[i] <= pos) best = i;
+        cell[sc.first_cell + p] = temp_model_[best] - tg;
+      }
     }
-    parcel_head_ = 0;
-    parcel_acc_m3_ = 0.0;
+    for (Stretch& sc : stretches_) { sc.head = 0; sc.acc_m3 = 0.0; }
     parcels_init_ = true;
   } else if (dt > 0.0) {
     if (dt != last_relax_dt_) {
       relax_ = std::exp(-dt / seg.thermal_time_constant_s);
       last_relax_dt_ = dt;
     }
-    // Volume passed this tick, at the density of the entry reach.
-    const int entry = flow_kg_s >= 0.0 ? 0 : n - 1;
-    parcel_acc_m3_ += flow_kg_s / rho_[entry] * dt;
-    int guard = 0;
-    while (parcel_acc_m3_ >= parcel_volume_m3_ && guard++ < np) {
-      parcel_head_ = parcel_head_ == 0 ? np - 1 : parcel_head_ - 1;
-      cell[parcel_head_] = y[0] - tg;  // new parcel at the inlet
-      parcel_acc_m3_ -= parcel_volume_m3_;
+    // Downstream stretches first: what enters a stretch this tick is what sat
+    // at the end of its neighbour before the neighbour moved.
+    for (int st = ns - 1; st >= 0; --st) {
+      Stretch& sc = stretches_[st];
+      double q = 0.0;
+      for (int m : sc.feeding_meters) q += meter_flow_kg_s[m];
+      const int entry = q >= 0.0 ? sc.entry_reach : sc.exit_reach;
+      sc.acc_m3 += q / rho_[entry] * dt;
+      double* c = cell + sc.first_cell;
+      const int nc = sc.cells;
+      double in_fwd = y[0] - tg;
+      if (st > 0) {
+        const Stretch& up = stretches_[st - 1];
+        const int last = up.head + up.cells - 1 >= up.cells ? up.head - 1 : up.head + up.cells - 1;
+        in_fwd = cell[up.first_cell + last];
+      }
+      double in_rev = y[gt - 1] - tg;
+      if (st + 1 < ns) {
+        const Stretch& dn = stretches_[st + 1];
+        in_rev = cell[dn.first_cell + dn.head];
+      }
+      int guard = 0;
+      while (sc.acc_m3 >= sc.cell_m3 && guard++ < nc) {
+        sc.head = sc.head == 0 ? nc - 1 : sc.head - 1;
+        c[sc.head] = in_fwd;  // new parcel at the stretch's upstream end
+        sc.acc_m3 -= sc.cell_m3;
+      }
+      while (sc.acc_m3 <= -sc.cell_m3 && guard++ < nc) {
+        c[sc.head] = in_rev;  // new parcel at the downstream end
+        sc.head = sc.head + 1 == nc ? 0 : sc.head + 1;
+        sc.acc_m3 += sc.cell_m3;
+      }
+      if (guard >= nc) sc.acc_m3 = 0.0;  // more than the stretch's volume in one tick
     }
-    while (parcel_acc_m3_ <= -parcel_volume_m3_ && guard++ < np) {
-      cell[parcel_head_] = y[gt - 1] - tg;  // new parcel at the outlet
-      parcel_head_ = parcel_head_ + 1 == np ? 0 : parcel_head_ + 1;
-      parcel_acc_m3_ += parcel_volume_m3_;
-    }
-    if (guard >= np) parcel_acc_m3_ = 0.0;  // more than a line volume in one tick
-    for (int p = 0; p < np; ++p) cell[p] *= relax_;
+    const int total = static_cast<int>(parcel_dt_.size());
+    for (int p = 0; p < total; ++p) cell[p] *= relax_;
   }
   // Reach temperatures from the parcels (the fraction carried over shifts them).
-  const double shift = parcel_acc_m3_ / parcel_volume_m3_;
   for (int i = 0; i < n; ++i) {
-    double pos = reach_parcel_pos_[i] - shift;
+    const Stretch& sc = stretches_[reach_stretch_[i]];
+    const int nc = sc.cells;
+    double pos = reach_parcel_pos_[i] - sc.acc_m3 / sc.cell_m3;
     if (pos < 0.0) pos = 0.0;
-    if (pos > np - 1.0) pos = np - 1.0;
+    if (pos > nc - 1.0) pos = nc - 1.0;
     int p0 = static_cast<int>(pos);
-    if (p0 > np - 2) p0 = np - 2;
+    if (p0 > nc - 2) p0 = nc - 2;
     const double w = pos - p0;
-    int k0 = parcel_head_ + p0;
-    if (k0 >= np) k0 -= np;
-    const int k1 = k0 + 1 == np ? 0 : k0 + 1;
-    temp_model_[i] = tg + (1.0 - w) * cell[k0] + w * cell[k1];
+    int k0 = sc.head + p0;
+    if (k0 >= nc) k0 -= nc;
+    const int k1 = k0 + 1 == nc ? 0 : k0 + 1;
+    const double* c = cell + sc.first_cell;
+    temp_model_[i] = tg + (1.0 - w) * c[k0] + w * c[k1];
   }
   // Correct the modelled profile by the transmitters' residuals.
   for (int j = 0; j < gt; ++j) {
@@ -344,10 +413,10 @@ void SegmentInventory::UpdateTemperatures(const Aligner& aligner, double t, doub
 }
 
 const InventoryResult& SegmentInventory::Update(const Aligner& aligner, double t, double dt,
-                                                double flow_kg_s) {
+                                                const double* meter_flow_kg_s) {
   result_.flags = 0;
   UpdatePressures(aligner, t);
-  UpdateTemperatures(aligner, t, dt, flow_kg_s);
+  UpdateTemperatures(aligner, t, dt, meter_flow_kg_s);
 
   const int n = static_cast<int>(x_.size());
   const bool have_t = !seg_->temperature_gauges.empty();
@@ -403,7 +472,7 @@ const InventoryResult& SegmentInventory::Update(const Aligner& aligner, double t
 
   // Tanks.
   double tank = 0.0;
-  double var_p = 0.0;
+  double var_p = 0.0, var_t_tank = 0.0;
   const auto& tanks = seg_->tanks;
   for (size_t k = 0; k < tanks.size(); ++k) {
     const TankSpec& tk = tanks[k];
@@ -412,13 +481,25 @@ const InventoryResult& SegmentInventory::Update(const Aligner& aligner, double t
     if (!aligner.Usable(tk.level_point, t)) result_.flags |= kInvLevelStale;
     double vol = 0.0, dvdl = 0.0;
     if (!StrapVolume(tk.strapping, h.value_si, &vol, &dvdl)) result_.flags |= kInvLevelOutsideTable;
+    // Tank temperature: its own transmitter through the same first-order
+    // filter as the line's, else the line's inlet temperature.
     double temp_k = have_t ? gauge_t_filtered_[0] : kWallReferenceTemperature_k;
-    if (tk.temperature_point >= 0 && aligner.held(tk.temperature_point).has_value)
-      temp_k = aligner.value(tk.temperature_point);
-    const double rho = table_->Density(p_atm_, temp_k);
+    if (tk.temperature_point >= 0 && aligner.held(tk.temperature_point).has_value) {
+      const double raw = aligner.value(tk.temperature_point);
+      tank_t_filtered_[k] = tank_t_init_[k] ? raw + filter_decay_ * (tank_t_filtered_[k] - raw) : raw;
+      tank_t_init_[k] = 1;
+      temp_k = tank_t_filtered_[k];
+    }
+    FluidState st_tank;
+    if (!table_->Evaluate(p_atm_, temp_k, &st_tank)) result_.flags |= kInvOutsideFluidTable;
+    const double rho = st_tank.density_kg_m3;
     tank += vol * rho;
     dm_dlevel_[k] = dvdl * rho;
     var_p += (dm_dlevel_[k] * sigma_level_[k]) * (dm_dlevel_[k] * sigma_level_[k]);
+    if (tk.temperature_point >= 0) {
+      const double dmdt_tank = vol * st_tank.ddensity_dt_kg_m3_k * tank_sigma_t_[k];
+      var_t_tank += dmdt_tank * dmdt_tank;
+    }
   }
   result_.tank_kg = tank;
 
@@ -429,7 +510,7 @@ const InventoryResult& SegmentInventory::Update(const Aligner& aligner, double t
   double var_t = 0.0;
   for (size_t j = 0; j < dm_dt_.size(); ++j) var_t += (dm_dt_[j] * sigma_t_[j]) * (dm_dt_[j] * sigma_t_[j]);
   result_.sigma_pressure_kg = std::sqrt(var_p);
-  result_.sigma_temperature_kg = std::sqrt(var_t * filter_var);
+  result_.sigma_temperature_kg = std::sqrt((var_t + var_t_tank) * filter_var);
   return result_;
 }
 

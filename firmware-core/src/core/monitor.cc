@@ -4,6 +4,8 @@
 #include <cstdio>
 #include <sstream>
 
+#include "holdfast/arl.h"
+
 namespace holdfast {
 
 const char* SegmentStatusName(SegmentStatus s) {
@@ -60,8 +62,19 @@ std::string SegmentTick::ToString() const {
 Monitor::Monitor() = default;
 Monitor::~Monitor() = default;
 
-bool Monitor::Init(const Site& site, std::string* why) {
+bool Monitor::Init(const Site& site, const Options& options, std::string* why) {
+  if (!options.IsValid(why)) return false;
+  options_ = options;
   site_ = &site;
+  // One threshold table for the budget: each of the bank's detectors gets an
+  // equal share of the false-alarm rate (union bound).
+  // Built only when some segment has a nominal flow (the bank needs one).
+  bool any_decision = false;
+  for (const SegmentSpec& seg : site.segments)
+    any_decision = any_decision || (std::isfinite(seg.nominal_flow_kg_s) && seg.nominal_flow_kg_s > 0.0);
+  const double arl0 = ArlFromBudget(options.decision.false_alarm_interval_s, options.decision.block_s,
+                                    static_cast<int>(options.decision.target_fractions.size()));
+  if (any_decision && !(thresholds_.arl0() == arl0) && !thresholds_.Build(arl0, why)) return false;
   aligner_.Reset(site);
   tables_.clear();
   for (const FluidSpec& f : site.fluids) {
@@ -114,6 +127,7 @@ bool Monitor::InitSegments(std::string* why) {
       return false;
     }
     s.flows.assign(spec.meters.size(), MeterFlow{});
+    s.signed_flow.assign(spec.meters.size(), 0.0);
     for (size_t m = 0; m < spec.meters.size(); ++m) {
       const PointSpec& p = site.points[spec.meters[m].point];
       s.flows[m].random_frac = p.random_sigma;
@@ -121,8 +135,15 @@ bool Monitor::InitSegments(std::string* why) {
     }
     s.standard_density_kg_m3 =
         FluidDensity(site.fluids[spec.fluid], site.standard_pressure_pa, site.standard_temperature_k);
+    s.decision_enabled = std::isfinite(spec.nominal_flow_kg_s) && spec.nominal_flow_kg_s > 0.0;
+    if (s.decision_enabled &&
+        !s.decision.Init(options_.decision, spec.nominal_flow_kg_s, &thresholds_, &reason)) {
+      if (why) *why = "segment " + spec.id + ": " + reason;
+      return false;
+    }
     s.tick = SegmentTick{};
     s.tick.window_count = s.balance.window_count();
+    s.tick.decision_enabled = s.decision_enabled;
   }
   started_ = false;
   ticks_ = 0;
@@ -143,7 +164,7 @@ void Monitor::TickSegment(SegmentRuntime& s, double t, double dt) {
   const SegmentSpec& spec = *s.spec;
   SegmentTick& out = s.tick;
   uint32_t flags = 0;
-  double in = 0.0, outflow = 0.0, inlet_flow = 0.0;
+  double in = 0.0, outflow = 0.0;
   for (size_t m = 0; m < spec.meters.size(); ++m) {
     const MeterSpec& ms = spec.meters[m];
     const HeldValue& h = aligner_.held(ms.point);
@@ -173,16 +194,21 @@ void Monitor::TickSegment(SegmentRuntime& s, double t, double dt) {
     }
     const bool is_in = MeterRoleIsIn(ms.role);
     s.flows[m].flow_kg_s = is_in ? q : -q;
+    s.signed_flow[m] = s.flows[m].flow_kg_s;
     if (is_in) in += q; else outflow += q;
-    if (ms.role == MeterRole::kInlet) inlet_flow += q;
   }
-  const InventoryResult& inv = s.inventory.Update(aligner_, t, dt, inlet_flow);
+  const InventoryResult& inv = s.inventory.Update(aligner_, t, dt, s.signed_flow.data());
   flags |= inv.flags;
   const bool unavailable = (flags & (kSegMeterMissing | kSegMeterStale | kInvPressureMissing |
                                      kInvTemperatureMissing | kInvLevelMissing)) != 0;
   s.balance.Step(t, !unavailable, s.flows.data(), static_cast<int>(s.flows.size()), inv.total_kg(),
                  inv.sigma_pressure_kg, inv.sigma_temperature_kg, s.inventory.temperature_filter_decay());
 
+  if (s.decision_enabled) {
+    s.decision.Step(t, dt, !unavailable && s.balance.has_difference(), s.balance.residual_kg_s() * dt,
+                    s.balance.inventory_rate_kg_s());
+    out.decision = s.decision.result();
+  }
   out.time_s = t;
   out.flags = flags;
   out.inflow_kg_s = in;

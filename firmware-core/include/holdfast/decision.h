@@ -1,0 +1,135 @@
+// Sequential leak decision for one segment.
+//
+// The balance's per-tick imbalance is gathered into blocks (default 60 s);
+// each block mean r is standardised with learnt values,
+//     z = (r - bias) / (sigma * sqrt((1 + phi) / (1 - phi))),
+// where bias, sigma and the lag-one autocorrelation phi are slowly adapting,
+// outlier-clipped estimates (Huber-style clipping at a few sigma), frozen
+// while a leak hypothesis is building. The variance inflation
+// (1 + phi)/(1 - phi) is that of a sum of AR(1) samples.
+//
+// A bank of one-sided CUSUMs (Page 1954), one per target leak size d_i (as a
+// fraction of nominal flow), runs on z with k_i = d_i/(2 sigma_eff) and a
+// threshold h_i chosen so that the in-control average run length of each
+// detector meets the declared false-alarm budget (Brook & Evans 1972 Markov
+// chain; arl.h). The change point of a detector is the last block at which
+// its statistic was zero; the leak rate is the mean of (r - bias) since then.
+//
+// Operating transients (pump starts, valve moves) show as a large block
+// inventory rate: for kTransientHold_s after one, sigma is inflated by
+// kTransientInflation and learning stops ("reduced sensitivity"), instead of
+// going blind.
+#pragma once
+
+#include <array>
+#include <cstdint>
+#include <string>
+#include <vector>
+
+namespace holdfast {
+
+constexpr int kMaxDetectors = 8;
+constexpr double kTransientHold_s = 900.0;      // reduced sensitivity after a transient
+constexpr double kTransientInflation = 3.0;     // sigma multiplier while reduced
+constexpr double kTransientSigmas = 5.0;        // |inventory rate| beyond this many sd = transient
+
+struct DecisionOptions {
+  // Leak sizes the bank is tuned for, as fractions of the segment's nominal flow.
+  std::vector<double> target_fractions = {0.005, 0.01, 0.02, 0.05, 0.20};
+  // Declared false-alarm budget: mean time between false leak alarms per segment.
+  double false_alarm_interval_s = 90.0 * 86400.0;
+  // Length of the residual blocks the detectors see.
+  double block_s = 60.0;
+  // Time constant of the bias, variance and autocorrelation learning.
+  double learning_time_constant_s = 2.0 * 86400.0;
+  // Learning only (no decisions) for this long after start.
+  double warmup_s = 3600.0;
+  // Residuals are clipped at this many sigma before they update the learning.
+  double clip_sigmas = 3.0;
+  // Learning freezes while any detector is above this fraction of its threshold.
+  double freeze_ratio = 0.5;
+
+  bool IsValid(std::string* why) const;
+};
+
+enum class DecisionState : uint8_t {
+  kLearning,     // warming up: estimates forming, no decisions
+  kWatching,     // all detectors below half their thresholds
+  kSuspect,      // a detector above half its threshold: learning frozen
+  kLeak,         // a detector crossed its threshold
+  kUnavailable,  // the balance is unavailable: statistics held
+};
+const char* DecisionStateName(DecisionState s);
+
+struct DetectorStatus {
+  double target_kg_s = 0.0;
+  double k = 0.0;          // reference value, sigma units
+  double h = 0.0;          // threshold, sigma units
+  double statistic = 0.0;  // CUSUM S
+  double change_point_s = 0.0;
+  double sum_kg_s = 0.0;   // sum of (r - bias) since the change point
+  int64_t blocks = 0;      // blocks since the change point
+};
+
+struct DecisionResult {
+  DecisionState state = DecisionState::kLearning;
+  bool reduced_sensitivity = false;  // transient in progress
+  int detector_count = 0;
+  std::array<DetectorStatus, kMaxDetectors> detectors{};
+  int leading = -1;                  // detector with the largest S/h
+  double leak_rate_kg_s = 0.0;       // estimate since the change point (leading detector)
+  double change_point_s = 0.0;
+  double bias_kg_s = 0.0;
+  double sigma_kg_s = 0.0;           // block standard deviation (learnt)
+  double phi = 0.0;                  // lag-one autocorrelation of blocks
+  double arl0_blocks = 0.0;          // per-detector in-control ARL from the budget
+  std::string ToString() const;
+};
+
+// h(k) for one in-control ARL, tabulated once on a log grid of k (Markov
+// chain), then interpolated: threshold lookups never solve anything per tick.
+class CusumThresholdTable {
+ public:
+  bool Build(double arl0_samples, std::string* why);
+  double Lookup(double k) const;
+  double arl0() const { return arl0_; }
+
+ private:
+  double arl0_ = 0.0;
+  std::vector<double> log_k_, h_;
+};
+
+class SegmentDecision {
+ public:
+  // `table` must outlive this object (tables are shared between segments
+  // with the same budget). nominal_flow_kg_s > 0.
+  bool Init(const DecisionOptions& options, double nominal_flow_kg_s, const CusumThresholdTable* table,
+            std::string* why);
+  // Per tick: `imbalance_kg` is the tick's in - out - dM (balance), dt the
+  // tick length, inventory_rate_kg_s the tick's dM/dt. Allocates nothing.
+  void Step(double t, double dt, bool valid, double imbalance_kg, double inventory_rate_kg_s);
+  const DecisionResult& result() const { return result_; }
+
+  // Seeds the learning (from a tuning file): bias, block sigma, phi.
+  void Seed(double bias_kg_s, double sigma_kg_s, double phi);
+
+ private:
+  void EndBlock(double t);
+  void Learn(double r, double inv_rate);
+
+  DecisionOptions options_;
+  const CusumThresholdTable* table_ = nullptr;
+  double nominal_kg_s_ = 0.0;
+  DecisionResult result_;
+  double start_s_ = 0.0;
+  bool started_ = false;
+  // Block accumulation.
+  double block_kg_ = 0.0, block_dt_ = 0.0, block_inv_kg_ = 0.0, block_start_s_ = 0.0;
+  // Learning state.
+  int64_t learnt_blocks_ = 0;
+  double mean_ = 0.0, var_ = 0.0, cov1_ = 0.0, prev_dev_ = 0.0;
+  double inv_mean_ = 0.0, inv_var_ = 0.0;
+  double transient_until_s_ = -1e300;
+};
+
+}  // namespace holdfast
