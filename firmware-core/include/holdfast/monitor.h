@@ -90,6 +90,11 @@ class Monitor {
   // Allocates nothing.
   void Advance(double t);
 
+  // Seeds a segment's learnt residual statistics (from a tuning file):
+  // block bias and standard deviation (kg/s) and lag-one autocorrelation.
+  // False if the segment has no decision stage (no nominal flow).
+  bool SeedDecision(int segment, double bias_kg_s, double sigma_kg_s, double phi);
+
   int segment_count() const { return static_cast<int>(segments_.size()); }
   const SegmentTick& segment(int i) const { return segments_[i].tick; }
   const SegmentInventory& inventory(int i) const { return segments_[i].inventory; }

@@ -123,38 +123,60 @@ double CusumThresholdForArl(double arl0, double k, bool markov) {
   auto f = [&](double h) {
     return std::log(CusumArlMarkovRichardson(h, k, 0.0, states)) - target;
   };
-  const double f0 = f(0.0);
+  // At h = 0 the run length is geometric, ARL = 1 / (1 - Phi(k)) (the chain
+  // is exact there).
+  const double f0 = -std::log(0.5 * std::erfc(k * kSqrtHalf)) - target;
   if (!(f0 < 0.0)) return 0.0;  // even h = 0 alarms less often than the budget asks
 
-  // Bracket [lo, hi] with f(lo) < 0 <= f(hi), starting around the guess.
-  double lo = 0.0, flo = f0, hi = std::max(guess, 0.1), fhi = f(hi);
-  double step = 0.25 * (1.0 + hi);
-  while (fhi < 0.0) {
-    lo = hi;
-    flo = fhi;
-    hi += step;
-    step *= 2.0;
-    if (hi > kMaxThreshold) return kNaN;
+  // Bracket [lo, hi] with f(lo) < 0 <= f(hi), from the guess outwards: the
+  // Siegmund h is usually within a fraction of a percent.
+  const double x0 = std::max(guess, 1e-3);
+  const double fx0 = f(x0);
+  if (std::isnan(fx0)) return kNaN;
+  double step = 0.02 * (1.0 + x0);
+  double lo, flo, hi, fhi;
+  if (fx0 < 0.0) {
+    lo = x0;
+    flo = fx0;
+    hi = x0 + step;
     fhi = f(hi);
-  }
-  if (lo == 0.0 && hi > 0.2) {  // tighten from below when the guess was high
-    const double below = std::max(0.0, hi - 0.25 * (1.0 + hi));
-    const double fb = below > 0.0 ? f(below) : f0;
-    if (fb < 0.0) {
-      lo = below;
-      flo = fb;
+    while (fhi < 0.0) {
+      lo = hi;
+      flo = fhi;
+      step *= 2.0;
+      hi += step;
+      if (hi > kMaxThreshold) return kNaN;
+      fhi = f(hi);
+    }
+  } else {
+    hi = x0;
+    fhi = fx0;
+    lo = x0 - step;
+    for (;;) {
+      if (lo <= 0.0) {
+        lo = 0.0;
+        flo = f0;
+        break;
+      }
+      flo = f(lo);
+      if (flo < 0.0) break;
+      hi = lo;
+      fhi = flo;
+      step *= 2.0;
+      lo -= step;
     }
   }
-  if (!std::isfinite(fhi)) return kNaN;
+  if (hi > kMaxThreshold) return kNaN;
 
-  // Illinois regula falsi (Dowell & Jarratt 1971).
+  // Illinois regula falsi (Dowell & Jarratt 1971); bisection if a step
+  // leaves the bracket (e.g. an ARL beyond double range at hi).
   int side = 0;  // +1: hi replaced last, -1: lo replaced last
   double x = hi;
   for (int it = 0; it < 200; ++it) {
     x = hi - fhi * (hi - lo) / (fhi - flo);
     if (!(x > lo && x < hi)) x = 0.5 * (lo + hi);
     const double fx = f(x);
-    if (std::fabs(fx) <= 1e-13 || hi - lo <= 1e-9 * (1.0 + x)) break;
+    if (std::fabs(fx) <= 1e-10 || hi - lo <= 1e-9 * (1.0 + x)) break;
     if (fx >= 0.0) {
       hi = x;
       fhi = fx;

@@ -150,6 +150,15 @@ bool Monitor::InitSegments(std::string* why) {
   return true;
 }
 
+bool Monitor::SeedDecision(int segment, double bias_kg_s, double sigma_kg_s, double phi) {
+  if (segment < 0 || segment >= segment_count()) return false;
+  SegmentRuntime& s = segments_[segment];
+  if (!s.decision_enabled || !std::isfinite(bias_kg_s) || !(sigma_kg_s > 0.0) || !(phi > -1.0 && phi < 1.0))
+    return false;
+  s.decision.Seed(bias_kg_s, sigma_kg_s, phi);
+  return true;
+}
+
 void Monitor::Advance(double t) {
   if (started_ && !(t > last_t_)) return;
   const double dt = started_ ? t - last_t_ : 0.0;
