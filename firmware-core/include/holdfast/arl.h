@@ -35,15 +35,19 @@ namespace holdfast {
 // Montgomery, Introduction to Statistical Quality Control, CUSUM chapter):
 //     ARL = (exp(-2 D b) + 2 D b - 1) / (2 D^2),  D = mu - k,  b = h + 1.166,
 // and ARL = b^2 in the limit D = 0 (evaluated by its series near D = 0, so
-// the function is smooth through it). Good to about 1 % in control and near
-// mu = k for h >= 3; coarser (several %) for large shifts, where the run is
-// only a few samples. NaN for non-finite input or h < 0.
+// the function is smooth through it). Against the integral equation
+// (tests/ref/arl_check.py): within 1 % for |mu - k| <= 0.5 and h >= 2 (so in
+// control at k <= 0.5); 5.6-7 % high at mu - k = -1 (in control at k = 1:
+// 15344 against 14511 at h = 4, so a threshold from it is a little low);
+// 2-6 % low at mu - k = 1.5 (runs of a few samples), 15 % at h = 1. NaN for
+// non-finite input or h < 0.
 double CusumArlSiegmund(double h, double k, double mu);
 
 // One-sided CUSUM ARL by the Markov-chain approximation of Brook & Evans
 // (1972, Biometrika 59, 539-548; the ARL vector solves (I - R) L = 1, with
-// the zero state taking the mass at and just above zero): the interval [0, h] is split into `states` transient states of
-// width w = 2h/(2*states - 1); state 0 is the CUSUM at zero together with
+// the zero state taking the mass at and just above zero): the interval
+// [0, h] is split into `states` transient states of width
+// w = 2h/(2*states - 1); state 0 is the CUSUM at zero together with
 // (0, w/2], state i >= 1 is ((i - 1/2) w, (i + 1/2) w] represented by its
 // midpoint i*w, and S > h = (states - 1/2) w is the absorbing alarm state.
 // The transition matrix R among the transient states is
