@@ -14,9 +14,29 @@ namespace holdfast::cli {
 namespace {
 
 struct BalanceArgs {
-  std::string config, data, out = "-", format = "csv", segment;
+  std::string config, data, out = "-", format = "csv", segment, events;
   int every = 1;
 };
+
+std::string Num(double v, const char* fmt = "%.6f") {
+  if (!std::isfinite(v)) return "null";
+  char buf[64];
+  std::snprintf(buf, sizeof buf, fmt, v);
+  return buf;
+}
+
+// One alarm event as a JSON Lines record (documented in README, "Events").
+std::string EventJson(const Site& site, const AlarmEvent& e) {
+  std::string s = "{\"time\":\"" + FormatIsoUtc(e.time_s, 3) + "\",\"segment\":\"" + site.segments[e.segment].id +
+                  "\",\"type\":\"" + AlarmTypeName(e.type) + "\",\"state\":\"" + AlarmStateName(e.to) +
+                  "\",\"from\":\"" + AlarmStateName(e.from) + "\",\"cause\":\"" + AlarmCauseName(e.cause) +
+                  "\",\"priority\":\"" + AlarmPriorityName(e.priority) + "\",\"seq\":" + std::to_string(e.seq) +
+                  ",\"leak_rate_kg_s\":" + Num(e.evidence.leak_rate_kg_s) + ",\"location_m\":" +
+                  Num(e.evidence.location_m, "%.1f") + ",\"statistic\":" + Num(e.evidence.statistic, "%.4f") +
+                  ",\"threshold\":" + Num(e.evidence.threshold, "%.4f") + ",\"window_s\":" +
+                  Num(e.evidence.window_s, "%.1f") + ",\"user\":\"" + e.user + "\"}";
+  return s;
+}
 
 void WriteHeader(std::FILE* f, const BalanceArgs& a, const SegmentTick& t) {
   if (a.format != "csv") return;
@@ -26,7 +46,8 @@ void WriteHeader(std::FILE* f, const BalanceArgs& a, const SegmentTick& t) {
     const long w = std::lround(t.windows[i].window_s);
     std::fprintf(f, ",covered_%lds_s,imbalance_%lds_kg,imbalance_%lds_kg_s,sigma_%lds_kg,mdl_%lds_kg_s", w, w, w, w, w);
   }
-  std::fprintf(f, ",flags\n");
+  std::fprintf(f, ",decision,leak_rate_kg_s,leak_statistic,leak_threshold,location_m,location_low_m,"
+                  "location_high_m,leak_alarm,flags\n");
 }
 
 void WriteRow(std::FILE* f, const BalanceArgs& a, const std::string& seg, const SegmentTick& t) {
@@ -42,7 +63,15 @@ void WriteRow(std::FILE* f, const BalanceArgs& a, const std::string& seg, const 
       std::fprintf(f, ",%.1f,%.3f,%.6f,%.3f,%.6f", w.covered_s, w.imbalance_kg, w.imbalance_kg_s, w.sigma_kg,
                    w.mdl_kg_s);
     }
-    std::fprintf(f, ",%s\n", flags.c_str());
+    const DecisionResult& d = t.decision;
+    const bool lead = t.decision_enabled && d.leading >= 0;
+    std::fprintf(f, ",%s,%s,%s,%s,%s,%s,%s,%s,%s\n", t.decision_enabled ? DecisionStateName(d.state) : "",
+                 lead ? Num(d.leak_rate_kg_s).c_str() : "", lead ? Num(d.detectors[d.leading].statistic, "%.3f").c_str() : "",
+                 lead ? Num(d.detectors[d.leading].h, "%.3f").c_str() : "",
+                 t.location.valid ? Num(t.location.chainage_m, "%.0f").c_str() : "",
+                 t.location.valid ? Num(t.location.low_m, "%.0f").c_str() : "",
+                 t.location.valid ? Num(t.location.high_m, "%.0f").c_str() : "",
+                 AlarmStateName(t.alarms[static_cast<int>(AlarmType::kLeak)]), flags.c_str());
     return;
   }
   std::fprintf(f,
@@ -59,7 +88,13 @@ void WriteRow(std::FILE* f, const BalanceArgs& a, const std::string& seg, const 
                  "\"sigma_kg\":%.3f,\"mdl_kg_s\":%.6f}",
                  i ? "," : "", w.window_s, w.covered_s, w.imbalance_kg, w.imbalance_kg_s, w.sigma_kg, w.mdl_kg_s);
   }
-  std::fprintf(f, "],\"flags\":\"%s\"}\n", flags.c_str());
+  const DecisionResult& d = t.decision;
+  const bool lead = t.decision_enabled && d.leading >= 0;
+  std::fprintf(f, "],\"decision\":%s%s%s,\"leak_rate_kg_s\":%s,\"location_m\":%s,\"leak_alarm\":\"%s\",\"flags\":\"%s\"}\n",
+               t.decision_enabled ? "\"" : "", t.decision_enabled ? DecisionStateName(d.state) : "null",
+               t.decision_enabled ? "\"" : "", lead ? Num(d.leak_rate_kg_s).c_str() : "null",
+               t.location.valid ? Num(t.location.chainage_m, "%.1f").c_str() : "null",
+               AlarmStateName(t.alarms[static_cast<int>(AlarmType::kLeak)]), flags.c_str());
 }
 
 int RunBalance(const BalanceArgs& a) {
@@ -99,6 +134,22 @@ int RunBalance(const BalanceArgs& a) {
       return 2;
     }
   }
+  std::FILE* events = nullptr;
+  if (!a.events.empty()) {
+    events = a.events == "-" ? stdout : std::fopen(a.events.c_str(), "w");
+    if (!events) {
+      std::fprintf(stderr, "--events: cannot write %s\n", a.events.c_str());
+      return 2;
+    }
+  }
+  uint64_t event_count = 0;
+  auto drain = [&] {
+    AlarmEvent e;
+    while (monitor.PopEvent(&e)) {
+      ++event_count;
+      if (events) std::fprintf(events, "%s\n", EventJson(site, e).c_str());
+    }
+  };
   const double tick = site.tick_s;
   bool header = false;
   double next_tick = 0.0;
@@ -106,6 +157,7 @@ int RunBalance(const BalanceArgs& a) {
   uint64_t ticks = 0;
   auto do_tick = [&](double t) {
     monitor.Advance(t);
+    drain();
     if (ticks++ % static_cast<uint64_t>(a.every) != 0) return;
     for (int s = 0; s < monitor.segment_count(); ++s) {
       if (only >= 0 && s != only) continue;
@@ -134,9 +186,12 @@ int RunBalance(const BalanceArgs& a) {
     }
   }
   if (out != stdout) std::fclose(out);
+  if (events && events != stdout) std::fclose(events);
   std::fprintf(stderr, "%s: %llu rows, %llu bad; %llu ticks; readings %s\n", reader.path().c_str(),
                static_cast<unsigned long long>(reader.rows()), static_cast<unsigned long long>(reader.bad_rows()),
                static_cast<unsigned long long>(ticks), monitor.counters().ToString().c_str());
+  std::fprintf(stderr, "%llu alarm event(s)%s\n", static_cast<unsigned long long>(event_count),
+               a.events.empty() ? " (write them with --events FILE)" : "");
   for (const auto& e : reader.errors())
     std::fprintf(stderr, "%s:%llu: %s\n", reader.path().c_str(), static_cast<unsigned long long>(e.line),
                  e.message.c_str());
@@ -155,6 +210,7 @@ void Register(CLI::App& app, int* exit_code) {
   cmd->add_option("--format", args->format, "csv or jsonl")->check(CLI::IsMember({"csv", "jsonl"}));
   cmd->add_option("--every", args->every, "Write every Nth tick")->check(CLI::PositiveNumber);
   cmd->add_option("--segment", args->segment, "Only this segment id");
+  cmd->add_option("--events", args->events, "Write alarm events as JSON Lines to this file (- for stdout)");
   cmd->callback([args, exit_code] { *exit_code = RunBalance(*args); });
 }
 

@@ -75,7 +75,8 @@ TEST_F(AlignerTest, StartsEmptyAndUnusable) {
     EXPECT_FALSE(aligner_.Usable(p, 0.0));
   }
   EXPECT_EQ(aligner_.counters().ToString(),
-            "accepted=0 late=0 out_of_order=0 duplicate=0 unknown_point=0 not_finite=0 bad_quality=0");
+            "accepted=0 late=0 out_of_order=0 duplicate=0 unknown_point=0 not_finite=0 bad_quality=0 "
+            "out_of_range=0 rate_of_change=0");
 }
 
 TEST_F(AlignerTest, ConvertsToSiOnEntry) {

@@ -241,6 +241,7 @@ class AlarmEventRing final : public AlarmEventSink {
     --count_;
     return true;
   }
+  void Clear() { head_ = count_ = 0; overwritten_ = 0; }
   std::size_t size() const { return count_; }
   static constexpr std::size_t capacity() { return N; }
   uint64_t overwritten() const { return overwritten_; }

@@ -24,6 +24,12 @@ enum class ApiCommodity { kCrudeOil, kGasoline, kTransitionZone, kJetFuel, kFuel
 
 const char* FluidKindName(FluidKind k);
 
+// Typical dynamic viscosity near 15 degC, Pa s, when a config gives none
+// (common handbook magnitudes, from memory): water 1.1e-3; crude oil 1e-2;
+// gasoline 5e-4, jet fuel 1.5e-3, fuel oil (diesel) 3.5e-3, lube oil 1e-1,
+// transition zone 1e-3; natural gas 1.1e-5.
+double DefaultViscosity(FluidKind kind, ApiCommodity commodity);
+
 struct FluidSpec {
   FluidKind kind = FluidKind::kWater;
   std::string name;
@@ -41,6 +47,10 @@ struct FluidSpec {
 
   // kNaturalGas: specific gravity relative to air (Mw = gravity * 28.9647 g/mol).
   double gas_gravity = 0.0;
+
+  // Dynamic viscosity, Pa s, for friction (leak location). Config
+  // "viscosity_cp"; when absent, DefaultViscosity() of the model.
+  double viscosity_pa_s = 1.0e-3;
 
   bool IsValid(std::string* why) const;
 };

@@ -151,6 +151,7 @@ class SegmentInventory {
   std::vector<double> sigma_p_, sigma_t_, sigma_level_;
   std::vector<double> tank_t_filtered_, tank_sigma_t_;
   std::vector<uint8_t> tank_t_init_;
+  std::vector<uint8_t> p_usable_, t_usable_;
   double last_dt_ = -1.0;
   std::vector<double> dm_dp_, dm_dt_, dm_dlevel_;
   InventoryResult result_;

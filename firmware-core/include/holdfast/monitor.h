@@ -16,9 +16,11 @@
 #include <vector>
 
 #include "holdfast/aligner.h"
+#include "holdfast/alarm.h"
 #include "holdfast/balance.h"
 #include "holdfast/decision.h"
 #include "holdfast/inventory.h"
+#include "holdfast/locate.h"
 #include "holdfast/reading.h"
 #include "holdfast/site.h"
 
@@ -32,6 +34,10 @@ enum class SegmentStatus : uint8_t {
 };
 const char* SegmentStatusName(SegmentStatus s);
 
+// Data-quality and unavailable alarms wait this long after the first tick, so
+// that every point has had time to report (longer than usual staleness limits).
+constexpr double kStartupGrace_s = 120.0;
+
 // Flags beyond InventoryFlag (inventory.h), same bit field.
 enum SegmentFlag : uint32_t {
   kSegMeterMissing = 1u << 16,  // a boundary meter never reported
@@ -40,6 +46,32 @@ enum SegmentFlag : uint32_t {
 };
 // Comma-separated names of the set flags ("" when none).
 std::string SegmentFlagNames(uint32_t flags);
+
+// Fast path for large sudden leaks: a sharp imbalance together with falling
+// pressure at both ends of the line within a short look-back.
+struct RuptureOptions {
+  double window_s = 60.0;           // look-back
+  double leak_fraction = 0.10;      // imbalance over the look-back, fraction of nominal flow
+  double pressure_drop_pa = 1.0e5;  // drop at both end transmitters over the look-back
+  bool IsValid(std::string* why) const;
+};
+
+// Where a leak is, by pressure-gradient intersection (locate.h), refreshed
+// once per decision block while a leak is suspected or alarmed.
+struct LeakLocation {
+  bool valid = false;
+  double time_s = 0.0;
+  double chainage_m = kNaN;
+  double low_m = kNaN, high_m = kNaN;   // band at the locate options' coverage
+  int landmark = -1;                    // nearest SegmentSpec::landmarks entry
+  double landmark_offset_m = kNaN;      // chainage - landmark chainage
+};
+
+enum class AlarmCommand : uint8_t {
+  kAcknowledge, kShelve, kUnshelve, kRemoveFromService, kReturnToService, kSuppress, kUnsuppress,
+};
+const char* AlarmCommandName(AlarmCommand c);
+bool ParseAlarmCommand(std::string_view name, AlarmCommand* out);
 
 struct SegmentTick {
   double time_s = 0.0;
@@ -58,6 +90,12 @@ struct SegmentTick {
   std::array<WindowResult, kMaxWindows> windows{};
   bool decision_enabled = false;     // needs the segment's nominal flow
   DecisionResult decision;
+  uint8_t point_dq = 0;              // union of PointDq flags of the segment's points
+  int points_unusable = 0;           // points missing, stale, bad or failing a check
+  bool rupture = false;              // fast-path condition this tick
+  double friction_scale = 1.0;       // learnt measured/predicted friction (location)
+  LeakLocation location;
+  std::array<AlarmState, kAlarmTypeCount> alarms{};  // by AlarmType
 
   std::string ToString() const;  // one line, for logs and test failures
 };
@@ -72,7 +110,20 @@ class Monitor {
   struct Options {
     // The leak decision (detector bank, false-alarm budget, learning).
     DecisionOptions decision;
-    bool IsValid(std::string* why) const { return decision.IsValid(why); }
+    // Plausibility checks on every reading (range, rate of change, flatline).
+    DataQualityOptions data_quality;
+    RuptureOptions rupture;
+    GradientLocateOptions locate;
+    // Time constant of the inventory filter ahead of the decision, s.
+    double decision_inventory_filter_s = 300.0;
+    // One alarm of each type per segment (ISA-18.2 states, alarm.h). Leak and
+    // rupture alarms latch: they need an acknowledgement even if the
+    // condition goes away.
+    AlarmOptions leak_alarm = {true, AlarmPriority::kHigh, kReturnToNormalHold_s, kMaxShelve_s};
+    AlarmOptions rupture_alarm = {true, AlarmPriority::kUrgent, kReturnToNormalHold_s, kMaxShelve_s};
+    AlarmOptions data_quality_alarm = {false, AlarmPriority::kLow, kReturnToNormalHold_s, kMaxShelve_s};
+    AlarmOptions unavailable_alarm = {false, AlarmPriority::kMedium, kReturnToNormalHold_s, kMaxShelve_s};
+    bool IsValid(std::string* why) const;
   };
 
   // Builds density tables, reach grids, windows and the threshold table. The
@@ -95,6 +146,28 @@ class Monitor {
   // False if the segment has no decision stage (no nominal flow).
   bool SeedDecision(int segment, double bias_kg_s, double sigma_kg_s, double phi);
 
+  // Alarm events, oldest first, from an internal ring of kEventRingSize (the
+  // oldest are overwritten and counted when nobody drains it), unless a sink
+  // was set: then every event goes to the sink as it happens.
+  static constexpr std::size_t kEventRingSize = 1024;
+  bool PopEvent(AlarmEvent* out) { return ring_.Pop(out); }
+  uint64_t events_overwritten() const { return ring_.overwritten(); }
+  void SetEventSink(AlarmEventSink* sink) { forward_.external = sink; }
+  uint64_t next_sequence() const { return sequence_.peek(); }
+
+  // An operator or design command on one alarm, applied at time t.
+  AlarmResult Command(int segment, AlarmType type, AlarmCommand command, double t, double duration_s,
+                      std::string_view user);
+  const Alarm& alarm(int segment, AlarmType type) const {
+    return alarms_[static_cast<size_t>(segment) * kAlarmTypeCount + static_cast<size_t>(type)];
+  }
+
+  // Alarm states, sequence counter and learnt values as a versioned JSON
+  // document ("holdfast-state/1"); the caller stores it (atomically).
+  std::string SaveState() const;
+  // Restores what SaveState wrote for the same site. On error nothing changes.
+  bool RestoreState(const std::string& blob, std::string* why);
+
   int segment_count() const { return static_cast<int>(segments_.size()); }
   const SegmentTick& segment(int i) const { return segments_[i].tick; }
   const SegmentInventory& inventory(int i) const { return segments_[i].inventory; }
@@ -115,7 +188,33 @@ class Monitor {
     double standard_density_kg_m3 = 0.0;
     const DensityTable* table = nullptr;
     SegmentTick tick;
+    // End transmitters (first and last pressure gauge) and block averages.
+    std::vector<int> points;  // the segment's own points
+    double filtered_inventory_kg = 0.0, previous_inventory_kg = 0.0;
+    bool filtered_inventory_ok = false;
+    int p_first = -1, p_last = -1;
+    double block_dt = 0.0, block_p_first = 0.0, block_p_last = 0.0, block_in = 0.0;
+    std::vector<double> block_lateral;  // per meter, kg s
+    double friction_scale = 1.0;
+    int friction_blocks = 0;
+    GradientLocateInput locate_input;   // reused: laterals reserved at Init
+    // Rupture look-back ring.
+    std::vector<double> rup_t, rup_imb, rup_p0, rup_p1;
+    int rup_head = 0, rup_count = 0;
+    double cum_imbalance_kg = 0.0;
   };
+  struct ForwardSink final : AlarmEventSink {
+    AlarmEventRing<kEventRingSize>* ring = nullptr;
+    AlarmEventSink* external = nullptr;
+    void OnAlarmEvent(const AlarmEvent& e) override {
+      if (external) external->OnAlarmEvent(e); else ring->OnAlarmEvent(e);
+    }
+  };
+  void EndBlock(SegmentRuntime& s, double t);
+  void Locate(SegmentRuntime& s, double t, double inlet_kg_s, double p_first, double p_last, double n_samples,
+              const double* lateral_kg_s, double leak_kg_s);
+  void UpdateRupture(SegmentRuntime& s, double t, bool valid);
+  void UpdateAlarms(SegmentRuntime& s, int index, double t);
   void TickSegment(SegmentRuntime& s, double t, double dt);
   bool InitSegments(std::string* why);
 
@@ -124,8 +223,12 @@ class Monitor {
   std::vector<std::unique_ptr<DensityTable>> tables_;  // one per fluid
   Options options_;
   CusumThresholdTable thresholds_;
+  SequenceCounter sequence_;
+  AlarmEventRing<kEventRingSize> ring_;
+  ForwardSink forward_;
+  std::vector<Alarm> alarms_;  // kAlarmTypeCount per segment
   std::vector<SegmentRuntime> segments_;
-  double last_t_ = 0.0;
+  double last_t_ = 0.0, first_t_ = 0.0;
   bool started_ = false;
   uint64_t ticks_ = 0;
 };

@@ -10,6 +10,7 @@ namespace {
 
 constexpr double kWallReferenceTemperature_k = 288.15;  // bore measured at 15 degC
 constexpr uint64_t kSensitivityEveryTicks = 16;         // refresh of dM/dP, dM/dT
+constexpr double kSubstitutedSigmaFactor = 10.0;         // sigma of a held-over transmitter
 
 // Elevation at chainage x from the profile (linear, held beyond the ends).
 double ElevationAt(const std::vector<ElevationPoint>& profile, double x) {
@@ -133,6 +134,7 @@ bool SegmentInventory::Init(const Site& site, int segment, const DensityTable* t
     p_w_[i] = ds > 0.0 ? (s_[i] - gauge_s_[j]) / ds : 0.0;  // < 0 or > 1 extrapolates
   }
   gauge_p_.assign(gp, 0.0);
+  p_usable_.assign(gp, 1);
   gauge_head_rho_.assign(gp, 0.0);
   p_gauge_reach_.assign(gp, 0);
   for (int j = 0; j < gp; ++j) {
@@ -174,6 +176,7 @@ bool SegmentInventory::Init(const Site& site, int segment, const DensityTable* t
     t_gauge_reach_w_[j] = (xg - x_[i]) / (x_[i + 1] - x_[i]);
   }
   gauge_t_filtered_.assign(gt, 0.0);
+  t_usable_.assign(gt, 1);
   gauge_t_init_.assign(gt, 0);
   gauge_t_resid_.assign(gt, 0.0);
 
@@ -266,10 +269,13 @@ void SegmentInventory::UpdatePressures(const Aligner& aligner, double t) {
   for (int j = 0; j < gp; ++j) {
     const int pt = seg.pressure_gauges[j].point;
     const HeldValue& h = aligner.held(pt);
+    p_usable_[j] = 1;
     if (!h.has_value) {
       result_.flags |= kInvPressureMissing;
+      p_usable_[j] = 0;
     } else if (!aligner.Usable(pt, t)) {
-      result_.flags |= kInvPressureStale;
+      result_.flags |= kInvPressureStale;  // the last good value stands in
+      p_usable_[j] = 0;
     }
     const double p = h.has_value ? h.value_si : p_atm_;
     gauge_p_[j] = p;
@@ -304,7 +310,8 @@ void SegmentInventory::UpdateTemperatures(const Aligner& aligner, double t, doub
       result_.flags |= kInvTemperatureMissing;
       continue;
     }
-    if (!aligner.Usable(pt, t)) result_.flags |= kInvTemperatureStale;
+    t_usable_[j] = aligner.Usable(pt, t) ? 1 : 0;
+    if (!t_usable_[j]) result_.flags |= kInvTemperatureStale;  // the last good value stands in
     if (!gauge_t_init_[j]) {
       gauge_t_filtered_[j] = h.value_si;
       gauge_t_init_[j] = 1;
@@ -503,12 +510,20 @@ const InventoryResult& SegmentInventory::Update(const Aligner& aligner, double t
   }
   result_.tank_kg = tank;
 
-  for (size_t j = 0; j < dm_dp_.size(); ++j) var_p += (dm_dp_[j] * sigma_p_[j]) * (dm_dp_[j] * sigma_p_[j]);
+  // A transmitter whose last good value stands in is trusted much less: its
+  // sigma is inflated by kSubstitutedSigmaFactor (sensitivity stated honestly).
+  for (size_t j = 0; j < dm_dp_.size(); ++j) {
+    const double sp = sigma_p_[j] * (p_usable_[j] ? 1.0 : kSubstitutedSigmaFactor);
+    var_p += (dm_dp_[j] * sp) * (dm_dp_[j] * sp);
+  }
   // First-order filter y += a (x - y), a = 1 - decay: var(y) = var(x) * a / (2 - a).
   const double a = 1.0 - filter_decay_;
   const double filter_var = a / (2.0 - a);
   double var_t = 0.0;
-  for (size_t j = 0; j < dm_dt_.size(); ++j) var_t += (dm_dt_[j] * sigma_t_[j]) * (dm_dt_[j] * sigma_t_[j]);
+  for (size_t j = 0; j < dm_dt_.size(); ++j) {
+    const double st = sigma_t_[j] * (t_usable_[j] ? 1.0 : kSubstitutedSigmaFactor);
+    var_t += (dm_dt_[j] * st) * (dm_dt_[j] * st);
+  }
   result_.sigma_pressure_kg = std::sqrt(var_p);
   result_.sigma_temperature_kg = std::sqrt((var_t + var_t_tank) * filter_var);
   return result_;

@@ -1,5 +1,6 @@
 #include "holdfast/monitor.h"
 
+#include <algorithm>
 #include <cmath>
 #include <cstdio>
 #include <sstream>
@@ -59,6 +60,48 @@ std::string SegmentTick::ToString() const {
   return s;
 }
 
+bool RuptureOptions::IsValid(std::string* why) const {
+  auto fail = [&](const char* m) { if (why) *why = m; return false; };
+  if (!(window_s > 0.0)) return fail("rupture: window_s must be positive");
+  if (!(leak_fraction > 0.0)) return fail("rupture: leak_fraction must be positive");
+  if (!(pressure_drop_pa > 0.0)) return fail("rupture: pressure_drop_pa must be positive");
+  return true;
+}
+
+bool Monitor::Options::IsValid(std::string* why) const {
+  if (!(decision_inventory_filter_s > 0.0)) {
+    if (why) *why = "decision_inventory_filter_s must be positive";
+    return false;
+  }
+  return decision.IsValid(why) && data_quality.IsValid(why) && rupture.IsValid(why) && locate.IsValid(why) &&
+         leak_alarm.IsValid(why) && rupture_alarm.IsValid(why) && data_quality_alarm.IsValid(why) &&
+         unavailable_alarm.IsValid(why);
+}
+
+const char* AlarmCommandName(AlarmCommand c) {
+  switch (c) {
+    case AlarmCommand::kAcknowledge: return "acknowledge";
+    case AlarmCommand::kShelve: return "shelve";
+    case AlarmCommand::kUnshelve: return "unshelve";
+    case AlarmCommand::kRemoveFromService: return "remove_from_service";
+    case AlarmCommand::kReturnToService: return "return_to_service";
+    case AlarmCommand::kSuppress: return "suppress";
+    case AlarmCommand::kUnsuppress: return "unsuppress";
+  }
+  return "?";
+}
+
+bool ParseAlarmCommand(std::string_view name, AlarmCommand* out) {
+  for (int i = 0; i <= static_cast<int>(AlarmCommand::kUnsuppress); ++i) {
+    const auto c = static_cast<AlarmCommand>(i);
+    if (name == AlarmCommandName(c)) {
+      *out = c;
+      return true;
+    }
+  }
+  return false;
+}
+
 Monitor::Monitor() = default;
 Monitor::~Monitor() = default;
 
@@ -66,6 +109,10 @@ bool Monitor::Init(const Site& site, const Options& options, std::string* why) {
   if (!options.IsValid(why)) return false;
   options_ = options;
   site_ = &site;
+  if (!(site.tick_s > 0.0)) {
+    if (why) *why = "site: tick_s must be positive";
+    return false;
+  }
   // One threshold table for the budget: each of the bank's detectors gets an
   // equal share of the false-alarm rate (union bound).
   // Built only when some segment has a nominal flow (the bank needs one).
@@ -75,7 +122,6 @@ bool Monitor::Init(const Site& site, const Options& options, std::string* why) {
   const double arl0 = ArlFromBudget(options.decision.false_alarm_interval_s, options.decision.block_s,
                                     static_cast<int>(options.decision.target_fractions.size()));
   if (any_decision && !(thresholds_.arl0() == arl0) && !thresholds_.Build(arl0, why)) return false;
-  aligner_.Reset(site);
   tables_.clear();
   for (const FluidSpec& f : site.fluids) {
     DensityTable::Options o;
@@ -96,12 +142,27 @@ bool Monitor::Init(const Site& site, const Options& options, std::string* why) {
 
 void Monitor::Reset() {
   if (site_ == nullptr) return;
-  aligner_.Reset(*site_);
   InitSegments(nullptr);  // succeeded in Init with the same site
 }
 
 bool Monitor::InitSegments(std::string* why) {
   const Site& site = *site_;
+  aligner_.Reset(site, options_.data_quality);
+  sequence_ = SequenceCounter();
+  ring_.Clear();
+  forward_.ring = &ring_;
+  alarms_.assign(site.segments.size() * kAlarmTypeCount, Alarm());
+  for (size_t i = 0; i < site.segments.size(); ++i) {
+    for (int k = 0; k < kAlarmTypeCount; ++k) {
+      const auto type = static_cast<AlarmType>(k);
+      const AlarmOptions& ao = type == AlarmType::kLeak      ? options_.leak_alarm
+                               : type == AlarmType::kRupture ? options_.rupture_alarm
+                               : type == AlarmType::kDataQuality ? options_.data_quality_alarm
+                                                                 : options_.unavailable_alarm;
+      if (!alarms_[i * kAlarmTypeCount + k].Init(static_cast<int>(i), type, ao, &sequence_, &forward_, why))
+        return false;
+    }
+  }
   segments_.clear();
   segments_.resize(site.segments.size());
   for (size_t i = 0; i < site.segments.size(); ++i) {
@@ -144,6 +205,26 @@ bool Monitor::InitSegments(std::string* why) {
     s.tick = SegmentTick{};
     s.tick.window_count = s.balance.window_count();
     s.tick.decision_enabled = s.decision_enabled;
+    // End transmitters for location and the rupture path.
+    if (!spec.pressure_gauges.empty()) {
+      s.p_first = 0;
+      s.p_last = static_cast<int>(spec.pressure_gauges.size()) - 1;
+    }
+    s.block_lateral.assign(spec.meters.size(), 0.0);
+    // The segment's own points, once each (data-quality summary).
+    auto add_point = [&s](int p) {
+      if (p >= 0 && std::find(s.points.begin(), s.points.end(), p) == s.points.end()) s.points.push_back(p);
+    };
+    for (const MeterSpec& m : spec.meters) { add_point(m.point); add_point(m.pressure_point); add_point(m.temperature_point); }
+    for (const GaugeSpec& g : spec.pressure_gauges) add_point(g.point);
+    for (const GaugeSpec& g : spec.temperature_gauges) add_point(g.point);
+    for (const TankSpec& tk : spec.tanks) { add_point(tk.level_point); add_point(tk.temperature_point); }
+    s.locate_input.laterals.reserve(spec.meters.size());
+    const int ring = std::max(2, static_cast<int>(std::ceil(options_.rupture.window_s / site.tick_s)) + 1);
+    s.rup_t.assign(ring, 0.0);
+    s.rup_imb.assign(ring, 0.0);
+    s.rup_p0.assign(ring, 0.0);
+    s.rup_p1.assign(ring, 0.0);
   }
   started_ = false;
   ticks_ = 0;
@@ -161,6 +242,7 @@ bool Monitor::SeedDecision(int segment, double bias_kg_s, double sigma_kg_s, dou
 
 void Monitor::Advance(double t) {
   if (started_ && !(t > last_t_)) return;
+  if (!started_) first_t_ = t;
   const double dt = started_ ? t - last_t_ : 0.0;
   for (SegmentRuntime& s : segments_) TickSegment(s, t, dt);
   aligner_.SetTickTime(t);
@@ -214,8 +296,26 @@ void Monitor::TickSegment(SegmentRuntime& s, double t, double dt) {
                  inv.sigma_pressure_kg, inv.sigma_temperature_kg, s.inventory.temperature_filter_decay());
 
   if (s.decision_enabled) {
-    s.decision.Step(t, dt, !unavailable && s.balance.has_difference(), s.balance.residual_kg_s() * dt,
-                    s.balance.inventory_rate_kg_s());
+    // The decision sees the imbalance against a low-pass filtered inventory:
+    // transmitter noise on M enters a block residual as a difference of two
+    // noisy states, which the filter shrinks, while a steady change of
+    // inventory passes with its full slope (first-order filter, time
+    // constant Options::decision_inventory_filter_s).
+    const bool ok = !unavailable && s.balance.has_difference();
+    double imbalance_kg = 0.0, inv_rate = 0.0;
+    if (ok && s.filtered_inventory_ok) {
+      const double a = 1.0 - std::exp(-dt / options_.decision_inventory_filter_s);
+      const double before = s.filtered_inventory_kg;
+      s.filtered_inventory_kg += a * (inv.total_kg() - s.filtered_inventory_kg);
+      const double flow_kg = s.balance.residual_kg_s() * dt + (inv.total_kg() - s.previous_inventory_kg);
+      imbalance_kg = flow_kg - (s.filtered_inventory_kg - before);
+      inv_rate = (s.filtered_inventory_kg - before) / dt;
+    } else {
+      s.filtered_inventory_kg = inv.total_kg();
+    }
+    s.filtered_inventory_ok = !unavailable;
+    s.previous_inventory_kg = inv.total_kg();
+    s.decision.Step(t, dt, ok, imbalance_kg, inv_rate);
     out.decision = s.decision.result();
   }
   out.time_s = t;
@@ -240,6 +340,216 @@ void Monitor::TickSegment(SegmentRuntime& s, double t, double dt) {
   } else {
     out.status = SegmentStatus::kNormal;
   }
+
+  // Data quality of the segment's own points.
+  uint8_t dq = 0;
+  int unusable = 0;
+  for (int p : s.points) {
+    dq |= aligner_.Dq(p, t);
+    if (!aligner_.Usable(p, t)) ++unusable;
+  }
+  out.point_dq = dq;
+  out.points_unusable = unusable;
+
+  // Block averages of the end pressures and flows for location; the block
+  // clock runs on valid ticks, like the decision stage's.
+  const bool valid = !unavailable && s.balance.has_difference();
+  if (s.decision_enabled && s.p_first >= 0 && valid) {
+    s.block_dt += dt;
+    s.block_p_first += aligner_.value(spec.pressure_gauges[s.p_first].point) * dt;
+    s.block_p_last += aligner_.value(spec.pressure_gauges[s.p_last].point) * dt;
+    for (size_t m = 0; m < spec.meters.size(); ++m) {
+      if (spec.meters[m].role == MeterRole::kInlet) s.block_in += s.signed_flow[m] * dt;
+      s.block_lateral[m] += s.signed_flow[m] * dt;
+    }
+    if (s.block_dt >= options_.decision.block_s - 1e-9) EndBlock(s, t);
+  } else if (!valid) {
+    s.block_dt = s.block_p_first = s.block_p_last = s.block_in = 0.0;
+    std::fill(s.block_lateral.begin(), s.block_lateral.end(), 0.0);
+  }
+  UpdateRupture(s, t, valid);
+  out.friction_scale = s.friction_scale;
+  UpdateAlarms(s, static_cast<int>(&s - segments_.data()), t);
+}
+
+void Monitor::EndBlock(SegmentRuntime& s, double t) {
+  const double inv = 1.0 / s.block_dt;
+  const double p0 = s.block_p_first * inv, p1 = s.block_p_last * inv, q_in = s.block_in * inv;
+  for (double& v : s.block_lateral) v *= inv;
+  const double n = s.block_dt / site_->tick_s;
+  const DecisionResult& d = s.decision.result();
+  const bool quiet = (d.state == DecisionState::kWatching || d.state == DecisionState::kLearning) &&
+                     !d.reduced_sensitivity;
+  if (quiet || d.state == DecisionState::kSuspect || d.state == DecisionState::kLeak) {
+    Locate(s, t, q_in, p0, p1, n, s.block_lateral.data(),
+           quiet ? 0.0 : std::max(d.leak_rate_kg_s, 0.0));
+    if (quiet) {
+      // Learn friction from the leak-free steady state: measured over
+      // predicted head loss (locate.h), averaged slowly.
+      std::string why;
+      const double scale = FrictionScaleFromSteadyState(s.spec->sections, s.spec->profile, s.locate_input,
+                                                        options_.locate, &why);
+      if (std::isfinite(scale) && scale > 0.2 && scale < 5.0) {
+        const double w = std::max(1.0 / ++s.friction_blocks, 0.02);
+        s.friction_scale += w * (scale - s.friction_scale);
+      }
+    }
+  }
+  s.block_dt = s.block_p_first = s.block_p_last = s.block_in = 0.0;
+  std::fill(s.block_lateral.begin(), s.block_lateral.end(), 0.0);
+}
+
+// Fills the segment's locate input from block means and, when a leak is
+// suspected, runs the gradient intersection (locate.h). Runs once per block.
+void Monitor::Locate(SegmentRuntime& s, double t, double inlet_kg_s, double p_first, double p_last,
+                     double n_samples, const double* lateral_kg_s, double leak_kg_s) {
+  const SegmentSpec& spec = *s.spec;
+  const Site& site = *site_;
+  GradientLocateInput& in = s.locate_input;
+  const FluidSpec& fluid = site.fluids[spec.fluid];
+  in.density_kg_m3 = s.table->Density(0.5 * (p_first + p_last), s.tick.mean_temperature_k);
+  in.viscosity_pa_s = fluid.viscosity_pa_s;
+  const GaugeSpec& g0 = spec.pressure_gauges[s.p_first];
+  const GaugeSpec& g1 = spec.pressure_gauges[s.p_last];
+  auto p_sigma = [&](const GaugeSpec& g) {
+    const PointSpec& p = site.points[g.point];
+    return std::sqrt(p.random_sigma * p.random_sigma / std::max(n_samples, 1.0) +
+                     p.systematic_sigma * p.systematic_sigma);
+  };
+  double sys2 = 0.0, laterals = 0.0;
+  in.laterals.clear();
+  for (size_t m = 0; m < spec.meters.size(); ++m) {
+    const MeterSpec& ms = spec.meters[m];
+    const double frac = site.points[ms.point].systematic_sigma;
+    if (ms.role == MeterRole::kInlet) sys2 += frac * frac * inlet_kg_s * inlet_kg_s;
+    if (ms.role == MeterRole::kDelivery || ms.role == MeterRole::kInjection) {
+      if (ms.chainage_m > g0.chainage_m && ms.chainage_m < g1.chainage_m) {
+        LateralFlow lf;
+        lf.chainage_m = ms.chainage_m;
+        lf.flow_kg_s = lateral_kg_s[m];
+        lf.sigma_kg_s = std::fabs(frac * lateral_kg_s[m]);
+        in.laterals.push_back(lf);
+        laterals += lateral_kg_s[m];
+      }
+    }
+  }
+  in.inlet.chainage_m = g0.chainage_m;
+  in.inlet.pressure_pa = p_first;
+  in.inlet.pressure_sigma_pa = p_sigma(g0);
+  in.inlet.flow_kg_s = inlet_kg_s;
+  in.inlet.flow_sigma_kg_s = std::sqrt(sys2);
+  in.inlet.elevation_m = g0.elevation_m;
+  in.outlet.chainage_m = g1.chainage_m;
+  in.outlet.pressure_pa = p_last;
+  in.outlet.pressure_sigma_pa = p_sigma(g1);
+  // The line flow at the outlet end: what entered, changed by the laterals,
+  // less the leak the balance sees (the tank and the outlet meter are inside
+  // the control volume's metering, not on the line).
+  in.outlet.flow_kg_s = inlet_kg_s + laterals - leak_kg_s;
+  const DecisionResult& d = s.decision.result();
+  in.outlet.flow_sigma_kg_s = std::sqrt(sys2 + d.sigma_kg_s * d.sigma_kg_s);
+  in.outlet.elevation_m = g1.elevation_m;
+  if (!(leak_kg_s > 0.0)) return;  // nothing to locate; the input serves friction learning
+
+  GradientLocateOptions o = options_.locate;
+  o.friction_scale = s.friction_scale;
+  const GradientLocation loc = LocateByPressureGradient(spec.sections, spec.profile, in, o);
+  LeakLocation& out = s.tick.location;
+  out.time_s = t;
+  out.valid = loc.found;
+  if (loc.found) {
+    out.chainage_m = loc.chainage_m;
+    out.low_m = loc.chainage_low_m;
+    out.high_m = loc.chainage_high_m;
+    const NearestLandmarkResult lm = NearestLandmark(spec.landmarks, loc.chainage_m);
+    out.landmark = lm.found ? lm.index : -1;
+    out.landmark_offset_m = lm.found ? lm.signed_distance_m : kNaN;
+  }
+}
+
+void Monitor::UpdateRupture(SegmentRuntime& s, double t, bool valid) {
+  SegmentTick& out = s.tick;
+  out.rupture = false;
+  if (!s.decision_enabled || s.p_first < 0 || s.p_first == s.p_last) return;
+  if (!valid) {
+    s.rup_count = 0;
+    return;
+  }
+  s.cum_imbalance_kg += s.balance.residual_kg_s() * (t - (s.rup_count ? s.rup_t[(s.rup_head + s.rup_t.size() - 1) % s.rup_t.size()] : t));
+  const int size = static_cast<int>(s.rup_t.size());
+  const int slot = (s.rup_head + s.rup_count) % size;
+  if (s.rup_count == size) s.rup_head = (s.rup_head + 1) % size; else ++s.rup_count;
+  s.rup_t[slot] = t;
+  s.rup_imb[slot] = s.cum_imbalance_kg;
+  s.rup_p0[slot] = aligner_.value(s.spec->pressure_gauges[s.p_first].point);
+  s.rup_p1[slot] = aligner_.value(s.spec->pressure_gauges[s.p_last].point);
+  const int old = s.rup_head;
+  const double span = t - s.rup_t[old];
+  if (span < 0.5 * options_.rupture.window_s) return;
+  const double rate = (s.cum_imbalance_kg - s.rup_imb[old]) / span;
+  const double drop0 = s.rup_p0[old] - s.rup_p0[slot];
+  const double drop1 = s.rup_p1[old] - s.rup_p1[slot];
+  out.rupture = rate > options_.rupture.leak_fraction * s.spec->nominal_flow_kg_s &&
+                drop0 > options_.rupture.pressure_drop_pa && drop1 > options_.rupture.pressure_drop_pa;
+  if (out.rupture && !alarms_[static_cast<size_t>(&s - segments_.data()) * kAlarmTypeCount +
+                              static_cast<size_t>(AlarmType::kRupture)].condition_active()) {
+    // Locate at once on the current state (one evaluation, at detection).
+    double lateral[64] = {0};
+    const size_t nm = std::min<size_t>(s.signed_flow.size(), 64);
+    double q_in = 0.0;
+    for (size_t m = 0; m < nm; ++m) {
+      lateral[m] = s.signed_flow[m];
+      if (s.spec->meters[m].role == MeterRole::kInlet) q_in += s.signed_flow[m];
+    }
+    Locate(s, t, q_in, s.rup_p0[slot], s.rup_p1[slot], 1.0, lateral, rate);
+  }
+}
+
+void Monitor::UpdateAlarms(SegmentRuntime& s, int index, double t) {
+  const SegmentTick& out = s.tick;
+  Alarm* a = &alarms_[static_cast<size_t>(index) * kAlarmTypeCount];
+  AlarmEvidence ev;
+  if (s.decision_enabled) {
+    const DecisionResult& d = out.decision;
+    if (d.leading >= 0) {
+      const DetectorStatus& lead = d.detectors[d.leading];
+      ev.leak_rate_kg_s = d.leak_rate_kg_s;
+      ev.statistic = lead.statistic;
+      ev.threshold = lead.h;
+      ev.window_s = t - lead.change_point_s;
+    }
+    if (out.location.valid) ev.location_m = out.location.chainage_m;
+    a[static_cast<int>(AlarmType::kLeak)].Update(t, d.state == DecisionState::kLeak, ev);
+    AlarmEvidence rv = ev;
+    rv.SetDetail("pressure falling at both ends");
+    a[static_cast<int>(AlarmType::kRupture)].Update(t, out.rupture, rv);
+  }
+  // At start-up points report one by one: missing data is not a fault until
+  // every point has had its staleness limit (kStartupGrace_s) to report.
+  const bool settled = t - first_t_ >= kStartupGrace_s;
+  AlarmEvidence dq;
+  dq.statistic = out.points_unusable;
+  a[static_cast<int>(AlarmType::kDataQuality)].Update(t, settled && out.points_unusable > 0, dq);
+  AlarmEvidence un;
+  a[static_cast<int>(AlarmType::kBalanceUnavailable)].Update(
+      t, settled && out.status == SegmentStatus::kUnavailable, un);
+  for (int k = 0; k < kAlarmTypeCount; ++k) s.tick.alarms[k] = a[k].state();
+}
+
+AlarmResult Monitor::Command(int segment, AlarmType type, AlarmCommand command, double t, double duration_s,
+                             std::string_view user) {
+  if (segment < 0 || segment >= segment_count()) return AlarmResult::kRejectedInvalidArgument;
+  Alarm& a = alarms_[static_cast<size_t>(segment) * kAlarmTypeCount + static_cast<size_t>(type)];
+  switch (command) {
+    case AlarmCommand::kAcknowledge: return a.Acknowledge(t, user);
+    case AlarmCommand::kShelve: return a.Shelve(t, duration_s, user);
+    case AlarmCommand::kUnshelve: return a.Unshelve(t, user);
+    case AlarmCommand::kRemoveFromService: return a.RemoveFromService(t, user);
+    case AlarmCommand::kReturnToService: return a.ReturnToService(t, user);
+    case AlarmCommand::kSuppress: return a.Suppress(t);
+    case AlarmCommand::kUnsuppress: return a.Unsuppress(t);
+  }
+  return AlarmResult::kRejectedInvalidArgument;
 }
 
 }  // namespace holdfast

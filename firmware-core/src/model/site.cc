@@ -45,4 +45,23 @@ int Site::FindPoint(const std::string& id) const {
   return -1;
 }
 
+double DefaultViscosity(FluidKind kind, ApiCommodity commodity) {
+  switch (kind) {
+    case FluidKind::kWater: return 1.1e-3;
+    case FluidKind::kGenericLiquid: return 1.0e-3;
+    case FluidKind::kNaturalGas: return 1.1e-5;
+    case FluidKind::kCrudeOil:
+    case FluidKind::kRefinedProduct:
+      switch (commodity) {
+        case ApiCommodity::kCrudeOil: return 1.0e-2;
+        case ApiCommodity::kGasoline: return 5.0e-4;
+        case ApiCommodity::kTransitionZone: return 1.0e-3;
+        case ApiCommodity::kJetFuel: return 1.5e-3;
+        case ApiCommodity::kFuelOil: return 3.5e-3;
+        case ApiCommodity::kLubeOil: return 1.0e-1;
+      }
+  }
+  return 1.0e-3;
+}
+
 }  // namespace holdfast

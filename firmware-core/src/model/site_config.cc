@@ -605,12 +605,12 @@ void Compiler::CompileFluid(const json& f, const std::string& path, FluidSpec* f
   double v = 0.0;
   switch (fluid->kind) {
     case FluidKind::kWater:
-      CheckKeys(f, path, {"model"});
+      CheckKeys(f, path, {"model", "viscosity_cp"});
       break;
     case FluidKind::kGenericLiquid:
       CheckKeys(f, path,
                 {"model", "reference_density", "reference_pressure", "reference_temperature",
-                 "bulk_modulus", "thermal_expansion_per_k"});
+                 "bulk_modulus", "thermal_expansion_per_k", "viscosity_cp"});
       if (Qty(f, "reference_density", path, Need::kRequired, {Quantity::kDensity}, &v) == Got::kOk) {
         if (v <= 0.0) Add(path + "/reference_density/value", "must be positive (got " + Num(v) + ")");
         fluid->reference_density_kg_m3 = v;
@@ -639,10 +639,10 @@ void Compiler::CompileFluid(const json& f, const std::string& path, FluidSpec* f
     case FluidKind::kCrudeOil:
     case FluidKind::kRefinedProduct:
       if (fluid->kind == FluidKind::kCrudeOil) {
-        CheckKeys(f, path, {"model", "base_density"});
+        CheckKeys(f, path, {"model", "base_density", "viscosity_cp"});
         fluid->commodity = ApiCommodity::kCrudeOil;
       } else {
-        CheckKeys(f, path, {"model", "product", "base_density"});
+        CheckKeys(f, path, {"model", "product", "base_density", "viscosity_cp"});
         Enum(f, "product", path, Need::kRequired, kProducts, &fluid->commodity);
       }
       if (Qty(f, "base_density", path, Need::kRequired, {Quantity::kDensity}, &v) == Got::kOk) {
@@ -651,9 +651,16 @@ void Compiler::CompileFluid(const json& f, const std::string& path, FluidSpec* f
       }
       break;
     case FluidKind::kNaturalGas:
-      CheckKeys(f, path, {"model", "gas_gravity"});
+      CheckKeys(f, path, {"model", "gas_gravity", "viscosity_cp"});
       Positive(f, "gas_gravity", path, Need::kRequired, &fluid->gas_gravity);
       break;
+  }
+  // Dynamic viscosity (for friction in leak location), centipoise = mPa s.
+  double viscosity_cp = 0.0;
+  if (Positive(f, "viscosity_cp", path, Need::kOptional, &viscosity_cp) == Got::kOk) {
+    fluid->viscosity_pa_s = viscosity_cp * 1e-3;
+  } else {
+    fluid->viscosity_pa_s = DefaultViscosity(fluid->kind, fluid->commodity);
   }
   if (problems_->size() != before) return;
   // The model's own limits (ranges of the correlations).

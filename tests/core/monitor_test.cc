@@ -1,0 +1,190 @@
+// End-to-end checks of the monitor: leak alarm with size and location on a
+// synthetic steady line, data quality instead of false leaks, and state that
+// survives a restart.
+#include "holdfast/monitor.h"
+
+#include <cmath>
+#include <random>
+
+#include <gtest/gtest.h>
+
+#include "holdfast/pipe.h"
+#include "test_site.h"
+
+namespace holdfast {
+namespace {
+
+using testing::GenericLiquid;
+using testing::Steel;
+using testing::TwoEndSite;
+
+constexpr double kG = 9.80665;
+
+// Steady Darcy-Weisbach head loss over a length of the test pipe, Pa
+// (dp = f L/D rho v^2/2, f from Colebrook & White 1939).
+double FrictionDrop(const PipeSection& s, double rho, double mu, double q_kg_s, double length) {
+  const double d = s.inside_diameter_m();
+  const double area = M_PI * d * d / 4.0;
+  const double v = q_kg_s / (rho * area);
+  const double re = rho * std::fabs(v) * d / mu;
+  const double f = ColebrookFriction(re, s.roughness_m / d);
+  return f * length / d * rho * v * std::fabs(v) / 2.0;
+}
+
+struct Line {
+  Site site;
+  PipeSection pipe;
+  double rho = 0.0, mu = 1e-3, length = 30000.0;
+  int in = 0, out = 0, p0 = 0, pl = 0, t0 = 0, tl = 0;
+};
+
+Line MakeLine() {
+  Line l;
+  const FluidSpec f = GenericLiquid(1000.0, 2.2e9, 2.1e-4);
+  l.pipe = Steel(l.length, 0.3239, 0.0079);
+  l.site = TwoEndSite(f, {l.pipe}, 500.0);
+  l.site.fluids[0].viscosity_pa_s = l.mu;
+  SegmentSpec& seg = l.site.segments[0];
+  seg.nominal_flow_kg_s = 100.0;
+  seg.landmarks = {{"valve A", 10000.0}, {"valve B", 20000.0}};
+  for (auto& p : l.site.points) {
+    p.staleness_s = 30.0;
+    if (p.kind == PointKind::kFlow) { p.random_sigma = 0.001; p.systematic_sigma = 0.0005; }
+    if (p.kind == PointKind::kPressure) { p.random_sigma = 500.0; p.systematic_sigma = 500.0; p.range_min = 0; p.range_max = 100e5; }
+    if (p.kind == PointKind::kTemperature) p.random_sigma = 0.02;
+  }
+  l.rho = FluidDensity(f, 30e5, 288.15);
+  l.in = l.site.FindPoint("in");
+  l.out = l.site.FindPoint("out");
+  l.p0 = l.site.FindPoint("p0");
+  l.pl = l.site.FindPoint("pL");
+  l.t0 = l.site.FindPoint("t0");
+  l.tl = l.site.FindPoint("tL");
+  return l;
+}
+
+// Feeds one second of a steady line with inflow q and, after t_leak, a leak
+// of q_leak at x_leak (the outlet meter reads what is left; the pressure at
+// the outlet follows the two friction gradients).
+void FeedSecond(const Line& l, Monitor* m, double t, double q, double t_leak, double q_leak, double x_leak,
+                std::mt19937_64* rng, bool meter_out_alive = true) {
+  std::normal_distribution<double> n01(0.0, 1.0);
+  const double leak = t >= t_leak ? q_leak : 0.0;
+  const double p_in = 40e5 + kStandardAtmosphere_pa;
+  const double p_out = p_in - FrictionDrop(l.pipe, l.rho, l.mu, q, x_leak) -
+                       FrictionDrop(l.pipe, l.rho, l.mu, q - leak, l.length - x_leak);
+  m->Feed({l.in, t, q * (1.0 + 0.001 * n01(*rng)), Quality::kGood});
+  if (meter_out_alive) m->Feed({l.out, t, (q - leak) * (1.0 + 0.001 * n01(*rng)), Quality::kGood});
+  m->Feed({l.p0, t, p_in + 500.0 * n01(*rng), Quality::kGood});
+  m->Feed({l.pl, t, p_out + 500.0 * n01(*rng), Quality::kGood});
+  m->Feed({l.t0, t, 288.15 + 0.02 * n01(*rng), Quality::kGood});
+  m->Feed({l.tl, t, 288.15 + 0.02 * n01(*rng), Quality::kGood});
+  m->Advance(t);
+}
+
+TEST(Monitor, LeakAlarmWithSizeAndLocationAndNoneBefore) {
+  const Line l = MakeLine();
+  Monitor m;
+  std::string why;
+  ASSERT_TRUE(m.Init(l.site, &why)) << why;
+  std::mt19937_64 rng(7);
+  const double t_leak = 3.0 * 3600.0, q_leak = 3.0, x_leak = 21000.0;  // 3 % of 100 kg/s
+  double detected = -1.0;
+  AlarmEvent e;
+  for (int k = 0; k < 5 * 3600; ++k) {
+    FeedSecond(l, &m, k, 100.0, t_leak, q_leak, x_leak, &rng);
+    while (m.PopEvent(&e)) {
+      if (e.type == AlarmType::kLeak && e.to == AlarmState::kUnackActive && detected < 0) {
+        detected = e.time_s;
+        EXPECT_GE(e.time_s, t_leak) << "false leak alarm before the leak: " << e.ToString();
+      }
+    }
+  }
+  ASSERT_GT(detected, 0.0) << m.segment(0).ToString() << " " << m.segment(0).decision.ToString();
+  EXPECT_LT(detected - t_leak, 1800.0);
+  const SegmentTick& tick = m.segment(0);
+  EXPECT_NEAR(tick.decision.leak_rate_kg_s, q_leak, 0.2 * q_leak) << tick.decision.ToString();
+  ASSERT_TRUE(tick.location.valid);
+  EXPECT_NEAR(tick.location.chainage_m, x_leak, 1500.0);
+  EXPECT_LE(tick.location.low_m, x_leak);
+  EXPECT_GE(tick.location.high_m, x_leak);
+  EXPECT_EQ(tick.location.landmark, 1);  // nearest: valve B at 20 km
+  EXPECT_EQ(m.alarm(0, AlarmType::kLeak).state(), AlarmState::kUnackActive);
+}
+
+TEST(Monitor, MeterDropoutRaisesDataQualityNotLeak) {
+  const Line l = MakeLine();
+  Monitor m;
+  ASSERT_TRUE(m.Init(l.site, nullptr));
+  std::mt19937_64 rng(11);
+  for (int k = 0; k < 2 * 3600; ++k) FeedSecond(l, &m, k, 100.0, 1e9, 0.0, 0.0, &rng);
+  for (int k = 2 * 3600; k < 3 * 3600; ++k) FeedSecond(l, &m, k, 100.0, 1e9, 0.0, 0.0, &rng, false);
+  EXPECT_EQ(m.segment(0).status, SegmentStatus::kUnavailable);
+  EXPECT_EQ(m.segment(0).decision.state, DecisionState::kUnavailable);
+  EXPECT_EQ(m.alarm(0, AlarmType::kBalanceUnavailable).state(), AlarmState::kUnackActive);
+  EXPECT_EQ(m.alarm(0, AlarmType::kDataQuality).state(), AlarmState::kUnackActive);
+  EXPECT_EQ(m.alarm(0, AlarmType::kLeak).state(), AlarmState::kNormal);
+  // The meter comes back: the balance resumes without a false leak.
+  for (int k = 3 * 3600; k < 4 * 3600; ++k) FeedSecond(l, &m, k, 100.0, 1e9, 0.0, 0.0, &rng);
+  EXPECT_NE(m.segment(0).status, SegmentStatus::kUnavailable);
+  EXPECT_EQ(m.alarm(0, AlarmType::kLeak).state(), AlarmState::kNormal);
+}
+
+TEST(Monitor, OutOfRangeReadingIsExcluded) {
+  const Line l = MakeLine();
+  Monitor m;
+  ASSERT_TRUE(m.Init(l.site, nullptr));
+  std::mt19937_64 rng(3);
+  for (int k = 0; k < 600; ++k) FeedSecond(l, &m, k, 100.0, 1e9, 0.0, 0.0, &rng);
+  const double held = m.aligner().value(l.p0);
+  m.Feed({l.p0, 600.5, 250e5, Quality::kGood});  // above the 100 bar range
+  EXPECT_EQ(m.aligner().value(l.p0), held);
+  EXPECT_NE(m.aligner().Dq(l.p0, 600.5) & kDqOutOfRange, 0);
+  EXPECT_EQ(m.counters().out_of_range, 1u);
+}
+
+TEST(Monitor, NoDataQualityAlarmDuringStartupGrace) {
+  const Line l = MakeLine();
+  Monitor m;
+  ASSERT_TRUE(m.Init(l.site, nullptr));
+  m.Feed({l.in, 0.0, 100.0, Quality::kGood});
+  m.Advance(0.0);
+  EXPECT_EQ(m.alarm(0, AlarmType::kDataQuality).state(), AlarmState::kNormal);
+  EXPECT_EQ(m.alarm(0, AlarmType::kBalanceUnavailable).state(), AlarmState::kNormal);
+}
+
+TEST(Monitor, StateSurvivesRestart) {
+  const Line l = MakeLine();
+  std::string blob;
+  uint64_t next_seq = 0;
+  {
+    Monitor m;
+    ASSERT_TRUE(m.Init(l.site, nullptr));
+    std::mt19937_64 rng(5);
+    for (int k = 0; k < 2 * 3600; ++k) FeedSecond(l, &m, k, 100.0, 1e9, 0.0, 0.0, &rng);
+    for (int k = 2 * 3600; k < 2 * 3600 + 600; ++k) FeedSecond(l, &m, k, 100.0, 1e9, 0.0, 0.0, &rng, false);
+    ASSERT_EQ(m.alarm(0, AlarmType::kBalanceUnavailable).state(), AlarmState::kUnackActive);
+    ASSERT_EQ(m.Command(0, AlarmType::kBalanceUnavailable, AlarmCommand::kAcknowledge, 7800.0, 0.0, "op.kim"),
+              AlarmResult::kApplied);
+    ASSERT_EQ(m.Command(0, AlarmType::kDataQuality, AlarmCommand::kShelve, 7800.0, 3600.0, "op.kim"),
+              AlarmResult::kApplied);
+    blob = m.SaveState();
+    next_seq = m.next_sequence();
+  }
+  Monitor m2;
+  ASSERT_TRUE(m2.Init(l.site, nullptr));
+  std::string why;
+  ASSERT_TRUE(m2.RestoreState(blob, &why)) << why;
+  EXPECT_EQ(m2.alarm(0, AlarmType::kBalanceUnavailable).state(), AlarmState::kAckActive);
+  EXPECT_EQ(m2.alarm(0, AlarmType::kDataQuality).state(), AlarmState::kShelved);
+  EXPECT_EQ(m2.next_sequence(), next_seq);
+  EXPECT_GT(m2.segment(0).decision.sigma_kg_s, 0.0);
+  // Broken blobs are refused and change nothing.
+  EXPECT_FALSE(m2.RestoreState(blob.substr(0, blob.size() / 2), &why));
+  EXPECT_FALSE(m2.RestoreState("{\"format\":\"holdfast-state/0\"}", &why));
+  EXPECT_NE(why.find("holdfast-state/1"), std::string::npos);
+  EXPECT_EQ(m2.alarm(0, AlarmType::kDataQuality).state(), AlarmState::kShelved);
+}
+
+}  // namespace
+}  // namespace holdfast
