@@ -13,7 +13,7 @@
 namespace holdfast {
 namespace {
 
-Site BenchSite(bool transport) {
+Site BenchSite(bool transport, bool decision) {
   using testing::AddPoint;
   const FluidSpec f = testing::GenericLiquid(860.0, 1.4e9, 8.5e-4);
   Site site = testing::TwoEndSite(f, {testing::Steel(14000.0, 0.4064, 0.0079), testing::Steel(11000.0, 0.3556, 0.0079)},
@@ -38,13 +38,15 @@ Site BenchSite(bool transport) {
     if (p.kind == PointKind::kPressure) p.random_sigma = 2000.0;
     if (p.kind == PointKind::kTemperature) p.random_sigma = 0.05;
   }
+  if (decision) seg.nominal_flow_kg_s = 200.0;  // arms the detector bank, alarms, location
   return site;  // 8 points: 3 meters, 3 pressures, 2 temperatures
 }
 
 void BM_MonitorTick(benchmark::State& state) {
   const bool transport = state.range(0) != 0;
+  const bool decision = state.range(1) != 0;
   static Site site;
-  site = BenchSite(transport);
+  site = BenchSite(transport, decision);
   Monitor m;
   std::string why;
   if (!m.Init(site, &why)) {
@@ -70,7 +72,8 @@ void BM_MonitorTick(benchmark::State& state) {
     }
     m.Advance(t);
   };
-  for (int i = 0; i < 1000; ++i) feed_tick();  // warm up: windows and filters settle
+  // Warm up: windows and filters settle, the decision stage leaves learning.
+  for (int i = 0; i < (decision ? 8000 : 1000); ++i) feed_tick();
   const uint64_t before = bench::AllocationCount();
   for (auto _ : state) {
     feed_tick();
@@ -84,7 +87,12 @@ void BM_MonitorTick(benchmark::State& state) {
   state.counters["reaches"] = m.inventory(0).reach_count();
   if (allocs != 0) state.SkipWithError("the tick allocated on the heap");
 }
-BENCHMARK(BM_MonitorTick)->Arg(0)->Arg(1)->ArgName("transport");
+BENCHMARK(BM_MonitorTick)
+    ->Args({0, 0})
+    ->Args({1, 0})
+    ->Args({0, 1})
+    ->Args({1, 1})
+    ->ArgNames({"transport", "decision"});
 
 }  // namespace
 }  // namespace holdfast

@@ -192,6 +192,7 @@ class Monitor {
     std::vector<int> points;  // the segment's own points
     double filtered_inventory_kg = 0.0, previous_inventory_kg = 0.0;
     bool filtered_inventory_ok = false;
+    double filter_dt = -1.0, filter_gain = 0.0;
     int p_first = -1, p_last = -1;
     double block_dt = 0.0, block_p_first = 0.0, block_p_last = 0.0, block_in = 0.0;
     std::vector<double> block_lateral;  // per meter, kg s
@@ -214,6 +215,7 @@ class Monitor {
   void Locate(SegmentRuntime& s, double t, double inlet_kg_s, double p_first, double p_last, double n_samples,
               const double* lateral_kg_s, double leak_kg_s);
   void UpdateRupture(SegmentRuntime& s, double t, bool valid);
+  double FrictionScale(const SegmentRuntime& s) const;
   void UpdateAlarms(SegmentRuntime& s, int index, double t);
   void TickSegment(SegmentRuntime& s, double t, double dt);
   bool InitSegments(std::string* why);
