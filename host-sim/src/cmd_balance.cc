@@ -46,8 +46,8 @@ void WriteHeader(std::FILE* f, const BalanceArgs& a, const SegmentTick& t) {
     const long w = std::lround(t.windows[i].window_s);
     std::fprintf(f, ",covered_%lds_s,imbalance_%lds_kg,imbalance_%lds_kg_s,sigma_%lds_kg,mdl_%lds_kg_s", w, w, w, w, w);
   }
-  std::fprintf(f, ",decision,leak_rate_kg_s,leak_statistic,leak_threshold,location_m,location_low_m,"
-                  "location_high_m,leak_alarm,flags\n");
+  std::fprintf(f, ",decision,bias_kg_s,sigma_kg_s,leak_rate_kg_s,leak_statistic,leak_threshold,location_m,"
+                  "location_low_m,location_high_m,leak_alarm,flags\n");
 }
 
 void WriteRow(std::FILE* f, const BalanceArgs& a, const std::string& seg, const SegmentTick& t) {
@@ -65,7 +65,8 @@ void WriteRow(std::FILE* f, const BalanceArgs& a, const std::string& seg, const 
     }
     const DecisionResult& d = t.decision;
     const bool lead = t.decision_enabled && d.leading >= 0;
-    std::fprintf(f, ",%s,%s,%s,%s,%s,%s,%s,%s,%s\n", t.decision_enabled ? DecisionStateName(d.state) : "",
+    std::fprintf(f, ",%s,%s,%s,%s,%s,%s,%s,%s,%s,%s,%s\n", t.decision_enabled ? DecisionStateName(d.state) : "",
+                 t.decision_enabled ? Num(d.bias_kg_s).c_str() : "", t.decision_enabled ? Num(d.sigma_kg_s).c_str() : "",
                  lead ? Num(d.leak_rate_kg_s).c_str() : "", lead ? Num(d.detectors[d.leading].statistic, "%.3f").c_str() : "",
                  lead ? Num(d.detectors[d.leading].h, "%.3f").c_str() : "",
                  t.location.valid ? Num(t.location.chainage_m, "%.0f").c_str() : "",

@@ -37,6 +37,10 @@ const char* SegmentStatusName(SegmentStatus s);
 // Data-quality and unavailable alarms wait this long after the first tick, so
 // that every point has had time to report (longer than usual staleness limits).
 constexpr double kStartupGrace_s = 120.0;
+// A point must stay unusable this long before the data-quality alarm rises.
+constexpr double kDataQualityOnDelay_s = 60.0;
+// The balance must stay unavailable this long before its alarm rises.
+constexpr double kUnavailableOnDelay_s = 30.0;
 
 // Flags beyond InventoryFlag (inventory.h), same bit field.
 enum SegmentFlag : uint32_t {
@@ -114,7 +118,8 @@ class Monitor {
     DataQualityOptions data_quality;
     RuptureOptions rupture;
     GradientLocateOptions locate;
-    // Time constant of the inventory filter ahead of the decision, s.
+    // Time constant of the low-pass filter on the cumulative imbalance ahead
+    // of the decision, s.
     double decision_inventory_filter_s = 300.0;
     // One alarm of each type per segment (ISA-18.2 states, alarm.h). Leak and
     // rupture alarms latch: they need an acknowledgement even if the
@@ -190,14 +195,18 @@ class Monitor {
     SegmentTick tick;
     // End transmitters (first and last pressure gauge) and block averages.
     std::vector<int> points;  // the segment's own points
-    double filtered_inventory_kg = 0.0, previous_inventory_kg = 0.0;
-    bool filtered_inventory_ok = false;
+    double dq_since_s = kNaN, unavailable_since_s = kNaN;  // on-delay clocks
+    double cumulative_kg = 0.0, cumulative_filtered_kg = 0.0;
     double filter_dt = -1.0, filter_gain = 0.0;
     int p_first = -1, p_last = -1;
     double block_dt = 0.0, block_p_first = 0.0, block_p_last = 0.0, block_in = 0.0;
     std::vector<double> block_lateral;  // per meter, kg s
     double friction_scale = 1.0;
     int friction_blocks = 0;
+    // Sums of block means since a leak hypothesis formed (location).
+    int leak_blocks = 0;
+    double leak_p0 = 0.0, leak_p1 = 0.0, leak_q_in = 0.0;
+    std::vector<double> leak_lateral;
     GradientLocateInput locate_input;   // reused: laterals reserved at Init
     // Rupture look-back ring.
     std::vector<double> rup_t, rup_imb, rup_p0, rup_p1;

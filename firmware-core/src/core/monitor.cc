@@ -211,6 +211,7 @@ bool Monitor::InitSegments(std::string* why) {
       s.p_last = static_cast<int>(spec.pressure_gauges.size()) - 1;
     }
     s.block_lateral.assign(spec.meters.size(), 0.0);
+    s.leak_lateral.assign(spec.meters.size(), 0.0);
     // The segment's own points, once each (data-quality summary).
     auto add_point = [&s](int p) {
       if (p >= 0 && std::find(s.points.begin(), s.points.end(), p) == s.points.end()) s.points.push_back(p);
@@ -296,29 +297,27 @@ void Monitor::TickSegment(SegmentRuntime& s, double t, double dt) {
                  inv.sigma_pressure_kg, inv.sigma_temperature_kg, s.inventory.temperature_filter_decay());
 
   if (s.decision_enabled) {
-    // The decision sees the imbalance against a low-pass filtered inventory:
-    // transmitter noise on M enters a block residual as a difference of two
-    // noisy states, which the filter shrinks, while a steady change of
-    // inventory passes with its full slope (first-order filter, time
-    // constant Options::decision_inventory_filter_s).
+    // The decision sees the cumulative imbalance C = sum(in - out) dt - (M - M0)
+    // through a first-order low-pass filter (time constant
+    // Options::decision_inventory_filter_s): transmitter noise on M enters C
+    // once, not differenced, and the filter shrinks it, while a lasting
+    // shortfall keeps its full slope. Inventory itself is never filtered, so
+    // steady filling or emptying adds no lag.
     const bool ok = !unavailable && s.balance.has_difference();
-    double imbalance_kg = 0.0, inv_rate = 0.0;
-    if (ok && s.filtered_inventory_ok) {
+    double imbalance_kg = 0.0;
+    if (ok) {
       if (dt != s.filter_dt) {
         s.filter_dt = dt;
         s.filter_gain = 1.0 - std::exp(-dt / options_.decision_inventory_filter_s);
       }
-      const double a = s.filter_gain;
-      const double before = s.filtered_inventory_kg;
-      s.filtered_inventory_kg += a * (inv.total_kg() - s.filtered_inventory_kg);
-      const double flow_kg = s.balance.residual_kg_s() * dt + (inv.total_kg() - s.previous_inventory_kg);
-      imbalance_kg = flow_kg - (s.filtered_inventory_kg - before);
-      inv_rate = (s.filtered_inventory_kg - before) / dt;
+      s.cumulative_kg += s.balance.residual_kg_s() * dt;
+      const double before = s.cumulative_filtered_kg;
+      s.cumulative_filtered_kg += s.filter_gain * (s.cumulative_kg - s.cumulative_filtered_kg);
+      imbalance_kg = s.cumulative_filtered_kg - before;
     } else {
-      s.filtered_inventory_kg = inv.total_kg();
+      s.cumulative_kg = s.cumulative_filtered_kg = 0.0;
     }
-    s.filtered_inventory_ok = !unavailable;
-    s.previous_inventory_kg = inv.total_kg();
+    const double inv_rate = ok ? s.balance.inventory_rate_kg_s() : 0.0;
     s.decision.Step(t, dt, ok, imbalance_kg, inv_rate);
     out.decision = s.decision.result();
   }
@@ -384,10 +383,27 @@ void Monitor::EndBlock(SegmentRuntime& s, double t) {
   const DecisionResult& d = s.decision.result();
   const bool quiet = (d.state == DecisionState::kWatching || d.state == DecisionState::kLearning) &&
                      !d.reduced_sensitivity;
-  if (quiet || d.state == DecisionState::kSuspect || d.state == DecisionState::kLeak) {
-    Locate(s, t, q_in, p0, p1, n, s.block_lateral.data(),
-           quiet ? 0.0 : std::max(d.leak_rate_kg_s, 0.0));
-    if (quiet) {
+  if (quiet) {
+    s.tick.location.valid = false;
+    s.leak_blocks = 0;
+    s.leak_p0 = s.leak_p1 = s.leak_q_in = 0.0;
+    std::fill(s.leak_lateral.begin(), s.leak_lateral.end(), 0.0);
+  } else if (d.state == DecisionState::kSuspect || d.state == DecisionState::kLeak) {
+    // A leak stays put: locate on the means of every block since the
+    // hypothesis formed, so transmitter noise averages down.
+    ++s.leak_blocks;
+    s.leak_p0 += p0;
+    s.leak_p1 += p1;
+    s.leak_q_in += q_in;
+    for (size_t m = 0; m < s.leak_lateral.size(); ++m) s.leak_lateral[m] += s.block_lateral[m];
+    const double k = 1.0 / s.leak_blocks;
+    for (size_t m = 0; m < s.leak_lateral.size(); ++m) s.block_lateral[m] = s.leak_lateral[m] * k;
+    Locate(s, t, s.leak_q_in * k, s.leak_p0 * k, s.leak_p1 * k, n * s.leak_blocks, s.block_lateral.data(),
+           std::max(d.leak_rate_kg_s, 0.0));
+  }
+  if (quiet) {
+    Locate(s, t, q_in, p0, p1, n, s.block_lateral.data(), 0.0);
+    {
       // Learn friction from the leak-free steady state: measured over
       // predicted head loss, averaged slowly.
       const double scale = FrictionScale(s);
@@ -567,13 +583,26 @@ void Monitor::UpdateAlarms(SegmentRuntime& s, int index, double t) {
   }
   // At start-up points report one by one: missing data is not a fault until
   // every point has had its staleness limit (kStartupGrace_s) to report.
+  // A data-quality or availability problem must also persist for its
+  // on-delay: one bad sample is counted, not annunciated.
   const bool settled = t - first_t_ >= kStartupGrace_s;
+  if (out.points_unusable > 0) {
+    if (!(s.dq_since_s <= t)) s.dq_since_s = t;
+  } else {
+    s.dq_since_s = kNaN;
+  }
+  if (out.status == SegmentStatus::kUnavailable) {
+    if (!(s.unavailable_since_s <= t)) s.unavailable_since_s = t;
+  } else {
+    s.unavailable_since_s = kNaN;
+  }
   AlarmEvidence dq;
   dq.statistic = out.points_unusable;
-  a[static_cast<int>(AlarmType::kDataQuality)].Update(t, settled && out.points_unusable > 0, dq);
+  a[static_cast<int>(AlarmType::kDataQuality)].Update(
+      t, settled && t - s.dq_since_s >= kDataQualityOnDelay_s, dq);
   AlarmEvidence un;
   a[static_cast<int>(AlarmType::kBalanceUnavailable)].Update(
-      t, settled && out.status == SegmentStatus::kUnavailable, un);
+      t, settled && t - s.unavailable_since_s >= kUnavailableOnDelay_s, un);
   for (int k = 0; k < kAlarmTypeCount; ++k) s.tick.alarms[k] = a[k].state();
 }
 
