@@ -67,12 +67,14 @@ Line MakeLine() {
 // of q_leak at x_leak (the outlet meter reads what is left; the pressure at
 // the outlet follows the two friction gradients).
 void FeedSecond(const Line& l, Monitor* m, double t, double q, double t_leak, double q_leak, double x_leak,
-                std::mt19937_64* rng, bool meter_out_alive = true) {
+                std::mt19937_64* rng, bool meter_out_alive = true, double inlet_drop_pa = 0.0,
+                double outlet_drop_pa = 0.0) {
   std::normal_distribution<double> n01(0.0, 1.0);
   const double leak = t >= t_leak ? q_leak : 0.0;
-  const double p_in = 40e5 + kStandardAtmosphere_pa;
+  const double p_in = 40e5 + kStandardAtmosphere_pa - (t >= t_leak ? inlet_drop_pa : 0.0);
   const double p_out = p_in - FrictionDrop(l.pipe, l.rho, l.mu, q, x_leak) -
-                       FrictionDrop(l.pipe, l.rho, l.mu, q - leak, l.length - x_leak);
+                       FrictionDrop(l.pipe, l.rho, l.mu, q - leak, l.length - x_leak) -
+                       (t >= t_leak ? outlet_drop_pa : 0.0);
   m->Feed({l.in, t, q * (1.0 + 0.001 * n01(*rng)), Quality::kGood});
   if (meter_out_alive) m->Feed({l.out, t, (q - leak) * (1.0 + 0.001 * n01(*rng)), Quality::kGood});
   m->Feed({l.p0, t, p_in + 500.0 * n01(*rng), Quality::kGood});
@@ -110,6 +112,28 @@ TEST(Monitor, LeakAlarmWithSizeAndLocationAndNoneBefore) {
   EXPECT_GE(tick.location.high_m, x_leak);
   EXPECT_EQ(tick.location.landmark, 1);  // nearest: valve B at 20 km
   EXPECT_EQ(m.alarm(0, AlarmType::kLeak).state(), AlarmState::kUnackActive);
+}
+
+// A large sudden leak: the imbalance jumps and pressure falls at both ends
+// within the rupture look-back (the falls are imposed here, as the negative
+// pressure waves and the new steady state would give them); the rupture
+// alarm rises within a minute.
+TEST(Monitor, RuptureFastPath) {
+  const Line l = MakeLine();
+  Monitor m;
+  ASSERT_TRUE(m.Init(l.site, nullptr));
+  std::mt19937_64 rng(13);
+  const double t_leak = 2.0 * 3600.0;
+  double raised = -1.0;
+  AlarmEvent e;
+  for (int k = 0; k < 2 * 3600 + 300; ++k) {
+    FeedSecond(l, &m, k, 100.0, t_leak, 30.0, 15000.0, &rng, true, 3.0e5, 5.0e5);
+    while (m.PopEvent(&e))
+      if (e.type == AlarmType::kRupture && e.to == AlarmState::kUnackActive && raised < 0) raised = e.time_s;
+  }
+  ASSERT_GT(raised, 0.0);
+  EXPECT_GE(raised, t_leak);
+  EXPECT_LT(raised - t_leak, 60.0);
 }
 
 TEST(Monitor, MeterDropoutRaisesDataQualityNotLeak) {
