@@ -135,6 +135,15 @@ bool SegmentInventory::Init(const Site& site, int segment, const DensityTable* t
   }
   gauge_p_.assign(gp, 0.0);
   p_usable_.assign(gp, 1);
+  g_dz_.assign(n, 0.0);
+  vol0_.assign(n, 0.0);
+  for (int i = 0; i < n; ++i) {
+    const GaugeSpec& lo = seg.pressure_gauges[p_lo_[i]];
+    const GaugeSpec& hi = seg.pressure_gauges[p_hi_[i]];
+    const double z_lin = lo.elevation_m + p_w_[i] * (hi.elevation_m - lo.elevation_m);
+    g_dz_[i] = kStandardGravity_m_s2 * (z_[i] - z_lin);
+    vol0_[i] = a0_[i] * dx_[i];
+  }
   gauge_head_rho_.assign(gp, 0.0);
   p_gauge_reach_.assign(gp, 0);
   for (int j = 0; j < gp; ++j) {
@@ -283,14 +292,12 @@ void SegmentInventory::UpdatePressures(const Aligner& aligner, double t) {
     table_->DensityOnly(p, temp_[p_gauge_reach_[j]], &gauge_head_rho_[j]);
   }
   const int n = static_cast<int>(x_.size());
-  const auto& gauges = seg.pressure_gauges;
   for (int i = 0; i < n; ++i) {
     const int lo = p_lo_[i], hi = p_hi_[i];
     const double w = p_w_[i];
-    const double rho = (1.0 - w) * gauge_head_rho_[lo] + w * gauge_head_rho_[hi];
-    const double p_lin = (1.0 - w) * gauge_p_[lo] + w * gauge_p_[hi];
-    const double z_lin = (1.0 - w) * gauges[lo].elevation_m + w * gauges[hi].elevation_m;
-    p_[i] = p_lin - rho * kStandardGravity_m_s2 * (z_[i] - z_lin);
+    const double rho = gauge_head_rho_[lo] + w * (gauge_head_rho_[hi] - gauge_head_rho_[lo]);
+    const double p_lin = gauge_p_[lo] + w * (gauge_p_[hi] - gauge_p_[lo]);
+    p_[i] = p_lin - rho * g_dz_[i];  // g_dz_ = g (z - z between the gauges), fixed
   }
 }
 
@@ -463,9 +470,8 @@ const InventoryResult& SegmentInventory::Update(const Aligner& aligner, double t
       const double p = p_[i], temp = temp_[i], dx = dx_[i];
       double rho;
       clamped |= !table_->DensityOnly(p, temp, &rho);
-      const double area = a0_[i] * (1.0 + compliance_[i] * (p - p_atm_)) *
-                          (1.0 + wall_alpha2_[i] * (temp - kWallReferenceTemperature_k));
-      mass += rho * area * dx;
+      mass += rho * vol0_[i] * (1.0 + compliance_[i] * (p - p_atm_)) *
+              (1.0 + wall_alpha2_[i] * (temp - kWallReferenceTemperature_k));
       rho_[i] = rho;
       p_sum += p * dx;
       t_sum += temp * dx;
