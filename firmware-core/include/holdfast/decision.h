@@ -1,15 +1,25 @@
 // Sequential leak decision for one segment.
 //
 // The balance's per-tick imbalance is gathered into blocks (default 60 s);
-// each block mean r is standardised with learnt values,
-//     z = (r - bias) / (sigma * sqrt((1 + phi) / (1 - phi))),
-// where bias, sigma and the lag-one autocorrelation phi are slowly adapting,
-// outlier-clipped estimates (Huber-style clipping at a few sigma), frozen
-// while a leak hypothesis is building. The variance inflation
-// (1 + phi)/(1 - phi) is that of a sum of AR(1) samples.
+// each block mean r is prewhitened and standardised with learnt values,
+//     e_t = r_t - bias,  z_t = (e_t - phi e_{t-1}) / (sigma * sqrt(1 - phi^2)),
+// where bias, sigma (the blocks' marginal standard deviation) and the lag-one
+// autocorrelation phi are slowly adapting, outlier-clipped estimates
+// (Huber-style clipping at a few sigma). For AR(1) blocks z is the
+// innovation, independent N(0, 1). The learning lags the detectors: a block
+// is learnt only once every detector's statistic has been back at zero after
+// it (no open leak hypothesis contains it), nothing is learnt while a
+// detector is above freeze_ratio * h, and the blocks of an excursion that
+// ends in an alarm are not learnt (unless the alarm is reset as false; one
+// that clears by itself counts as real). So a building leak is not absorbed
+// into the bias, and in control every block is learnt (no selection on its
+// value). From a cold start the detectors begin deciding one by one, as the
+// learnt bias becomes precise enough for each (kStartBiasErrorFraction).
 //
 // A bank of one-sided CUSUMs (Page 1954), one per target leak size d_i (as a
-// fraction of nominal flow), runs on z with k_i = d_i/(2 sigma_eff) and a
+// fraction of nominal flow), runs on z with k_i = d_i/(2 sigma_eff), sigma_eff
+// = sigma sqrt((1 + phi)/(1 - phi)) the long-run sigma of the blocks (a step
+// d shifts z by d/sigma_eff once past its first block), and a
 // threshold h_i chosen so that the in-control average run length of each
 // detector meets the declared false-alarm budget (Brook & Evans 1972 Markov
 // chain; arl.h). The change point of a detector is the last block at which
@@ -32,6 +42,14 @@ constexpr int kMaxDetectors = 8;
 constexpr double kTransientHold_s = 900.0;      // reduced sensitivity after a transient
 constexpr double kTransientInflation = 3.0;     // sigma multiplier while reduced
 constexpr double kTransientSigmas = 5.0;        // |inventory rate| beyond this many sd = transient
+constexpr int kMaxHeldBlocks = 2048;            // most blocks the learning may lag the detectors
+                                                // (then the oldest is learnt; while frozen, no more are held)
+// A detector starts deciding once the learnt bias's standard error,
+// sigma_lr / sqrt(n) for n learnt blocks, is at most this fraction of its
+// reference value k (both in long-run sigmas): n >= 1 / (f k)^2, capped at
+// the learning's effective sample size 2 * time constant / block. Seed()
+// starts them all.
+constexpr double kStartBiasErrorFraction = 0.25;
 
 struct DecisionOptions {
   // Leak sizes the bank is tuned for, as fractions of the segment's nominal flow.
@@ -46,7 +64,8 @@ struct DecisionOptions {
   double warmup_s = 3600.0;
   // Residuals are clipped at this many sigma before they update the learning.
   double clip_sigmas = 3.0;
-  // Learning freezes while any detector is above this fraction of its threshold.
+  // Learning freezes while any detector is above this fraction of its
+  // threshold (and learns only blocks that every detector has left behind).
   double freeze_ratio = 0.5;
 
   bool IsValid(std::string* why) const;
@@ -113,6 +132,17 @@ class SegmentDecision {
   // Seeds the learning (from a tuning file): bias, block sigma, phi.
   void Seed(double bias_kg_s, double sigma_kg_s, double phi);
 
+  // Restarts the CUSUMs after an alarm has been handled: detector `index`, or
+  // every detector when index < 0. Its statistic, change point (the last
+  // block end), leak sum and block count go back to zero, and the state and
+  // leading detector are recomputed from the remaining statistics; the
+  // learnt values and the block being gathered are untouched. Each detector
+  // is then a renewal process, the model behind ArlFromBudget (arl.h).
+  // The blocks of a pending alarm's excursion (since the alarming detector's
+  // last zero) are dropped from the learning, unless `false_alarm` says the
+  // alarm was false: then they are learnt like any in-control block.
+  void ResetDetectors(int index = -1, bool false_alarm = false);
+
  private:
   void EndBlock(double t);
   void Learn(double r, double inv_rate);
@@ -130,6 +160,27 @@ class SegmentDecision {
   double mean_ = 0.0, var_ = 0.0, cov1_ = 0.0, prev_dev_ = 0.0;
   double inv_mean_ = 0.0, inv_var_ = 0.0;
   double transient_until_s_ = -1e300;
+  // Blocks waiting to be learnt, oldest first (a ring of kMaxHeldBlocks):
+  // block `index` is learnt once every detector has been at zero at or after
+  // it and none is above freeze_ratio * h; the blocks after alarm_from_ (an
+  // alarming detector's last zero) wait for the alarm to be handled and are
+  // dropped unless it was false. zero_index_[i] is the last block at which
+  // detector i was at zero.
+  struct HeldBlock {
+    int64_t index = 0;
+    double r = 0.0, inv_rate = 0.0;
+  };
+  void LearnOldestHeld();
+  void DropHeldAfter(int64_t index);
+  std::vector<HeldBlock> held_;
+  int held_head_ = 0, held_n_ = 0;
+  int64_t block_index_ = 0;
+  std::array<int64_t, kMaxDetectors> zero_index_{};
+  int64_t alarm_from_ = INT64_MAX;
+  uint32_t deciding_ = 0;  // bit i: detector i has started (kStartBiasErrorFraction)
+  // Previous block's deviation r - bias, for prewhitening.
+  double prev_e_ = 0.0;
+  bool has_prev_e_ = false;
 };
 
 }  // namespace holdfast
