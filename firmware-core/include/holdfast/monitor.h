@@ -163,6 +163,11 @@ class Monitor {
   // An operator or design command on one alarm, applied at time t.
   AlarmResult Command(int segment, AlarmType type, AlarmCommand command, double t, double duration_s,
                       std::string_view user);
+  // After an operator has dealt with a leak alarm: restarts the segment's
+  // detectors. `false_alarm` true lets the learning take in the blocks of the
+  // excursion (it was normal operation); false drops them (it was a leak).
+  bool ResetLeakDetectors(int segment, bool false_alarm);
+
   const Alarm& alarm(int segment, AlarmType type) const {
     return alarms_[static_cast<size_t>(segment) * kAlarmTypeCount + static_cast<size_t>(type)];
   }

@@ -606,6 +606,15 @@ void Monitor::UpdateAlarms(SegmentRuntime& s, int index, double t) {
   for (int k = 0; k < kAlarmTypeCount; ++k) s.tick.alarms[k] = a[k].state();
 }
 
+bool Monitor::ResetLeakDetectors(int segment, bool false_alarm) {
+  if (segment < 0 || segment >= segment_count()) return false;
+  SegmentRuntime& s = segments_[segment];
+  if (!s.decision_enabled) return false;
+  s.decision.ResetDetectors(-1, false_alarm);
+  s.tick.decision = s.decision.result();
+  return true;
+}
+
 AlarmResult Monitor::Command(int segment, AlarmType type, AlarmCommand command, double t, double duration_s,
                              std::string_view user) {
   if (segment < 0 || segment >= segment_count()) return AlarmResult::kRejectedInvalidArgument;
