@@ -143,6 +143,7 @@ class SegmentInventory {
   std::vector<double> gauge_p_, gauge_head_rho_;
   std::vector<int> p_gauge_reach_;  // nearest reach of each pressure gauge
   std::vector<double> g_dz_, vol0_;  // per reach: g (z - z_gauges), A0 dx
+  std::vector<int> p_span_begin_;     // first reach of each gauge-pair span, then n
   std::vector<double> gauge_t_filtered_;
   std::vector<uint8_t> gauge_t_init_;
   std::vector<double> gauge_t_resid_;

@@ -135,6 +135,11 @@ bool SegmentInventory::Init(const Site& site, int segment, const DensityTable* t
   }
   gauge_p_.assign(gp, 0.0);
   p_usable_.assign(gp, 1);
+  // Contiguous runs of reaches sharing a gauge pair.
+  p_span_begin_.clear();
+  for (int i = 0; i < n; ++i)
+    if (i == 0 || p_lo_[i] != p_lo_[i - 1] || p_hi_[i] != p_hi_[i - 1]) p_span_begin_.push_back(i);
+  p_span_begin_.push_back(n);
   g_dz_.assign(n, 0.0);
   vol0_.assign(n, 0.0);
   for (int i = 0; i < n; ++i) {
@@ -291,13 +296,19 @@ void SegmentInventory::UpdatePressures(const Aligner& aligner, double t) {
     // Density at the gauge, at the temperature of the nearest reach (last tick).
     table_->DensityOnly(p, temp_[p_gauge_reach_[j]], &gauge_head_rho_[j]);
   }
-  const int n = static_cast<int>(x_.size());
-  for (int i = 0; i < n; ++i) {
-    const int lo = p_lo_[i], hi = p_hi_[i];
-    const double w = p_w_[i];
-    const double rho = gauge_head_rho_[lo] + w * (gauge_head_rho_[hi] - gauge_head_rho_[lo]);
-    const double p_lin = gauge_p_[lo] + w * (gauge_p_[hi] - gauge_p_[lo]);
-    p_[i] = p_lin - rho * g_dz_[i];  // g_dz_ = g (z - z between the gauges), fixed
+  // Span by span (reaches between the same two gauges are contiguous), so
+  // the inner loop is a plain vectorisable sweep.
+  const int spans = static_cast<int>(p_span_begin_.size()) - 1;
+  const double* w = p_w_.data();
+  const double* gdz = g_dz_.data();
+  double* out = p_.data();
+  for (int sp = 0; sp < spans; ++sp) {
+    const int b = p_span_begin_[sp], e = p_span_begin_[sp + 1];
+    if (b == e) continue;
+    const int lo = p_lo_[b], hi = p_hi_[b];
+    const double p0 = gauge_p_[lo], dp = gauge_p_[hi] - p0;
+    const double r0 = gauge_head_rho_[lo], dr = gauge_head_rho_[hi] - r0;
+    for (int i = b; i < e; ++i) out[i] = p0 + w[i] * dp - (r0 + w[i] * dr) * gdz[i];  // g_dz_ = g (z - z_gauges)
   }
 }
 
