@@ -46,10 +46,12 @@ bool WriteFileAtomic(const std::string& path, const std::string& content, std::s
   const size_t slash = path.find_last_of('/');
   const std::string dir = slash == std::string::npos ? "." : (slash == 0 ? "/" : path.substr(0, slash));
   const int dfd = ::open(dir.c_str(), O_RDONLY | O_DIRECTORY | O_CLOEXEC);
-  if (dfd >= 0) {
-    ::fsync(dfd);
-    ::close(dfd);
-  }
+  if (dfd < 0) return fail("written, but cannot open the directory " + dir + " to sync it: " + std::strerror(errno));
+  const int rc = ::fsync(dfd);
+  const int err = errno;
+  ::close(dfd);
+  // Some file systems cannot sync a directory (EINVAL); the rename stands.
+  if (rc != 0 && err != EINVAL) return fail("written, but cannot sync the directory " + dir + ": " + std::strerror(err));
   return true;
 }
 

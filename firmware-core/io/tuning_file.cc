@@ -1,8 +1,5 @@
 #include "tuning_file.h"
 
-#include <fcntl.h>
-#include <unistd.h>
-
 #include <cerrno>
 #include <cmath>
 #include <cstdio>
@@ -17,6 +14,7 @@
 
 #include <nlohmann/json.hpp>
 
+#include "atomic_file.h"
 #include "holdfast/monitor.h"
 #include "readings_csv.h"
 
@@ -109,31 +107,11 @@ ojson SegmentJson(const SegmentTuning& s) {
   return j;
 }
 
-std::string DirectoryOf(const std::string& path) {
-  const size_t slash = path.find_last_of('/');
-  if (slash == std::string::npos) return ".";
-  if (slash == 0) return "/";
-  return path.substr(0, slash);
-}
-
-bool WriteAll(int fd, const std::string& text) {
-  size_t done = 0;
-  while (done < text.size()) {
-    const ssize_t n = ::write(fd, text.data() + done, text.size() - done);
-    if (n < 0) {
-      if (errno == EINTR) continue;
-      return false;
-    }
-    done += static_cast<size_t>(n);
-  }
-  return true;
-}
-
 // ---------------------------------------------------------------------------
 // Reading
 // ---------------------------------------------------------------------------
 
-bool ReadWholeFile(const std::string& path, std::string* text, std::string* why) {
+bool ReadTuningText(const std::string& path, std::string* text, std::string* why) {
   std::FILE* f = std::fopen(path.c_str(), "rb");
   if (f == nullptr) {
     *why = std::strerror(errno);
@@ -387,7 +365,7 @@ bool LoadTuningFile(const std::string& path, const Site& site, TuningFile* file,
     return false;
   };
   std::string text, reason;
-  if (!ReadWholeFile(path, &text, &reason)) {
+  if (!ReadTuningText(path, &text, &reason)) {
     problems.push_back(path + ": cannot read the file: " + reason);
     return fail();
   }
@@ -494,33 +472,11 @@ bool WriteTuningFile(const std::string& path, const TuningFile& file, std::strin
     return fail(std::string("cannot serialise: ") + e.what());
   }
 
-  const std::string tmp = path + ".tmp";
-  const int fd = ::open(tmp.c_str(), O_WRONLY | O_CREAT | O_TRUNC | O_CLOEXEC, 0644);
-  if (fd < 0) return fail("cannot write " + tmp + ": " + std::strerror(errno));
-  if (!WriteAll(fd, text) || ::fsync(fd) != 0) {
-    const int err = errno;
-    ::close(fd);
-    ::unlink(tmp.c_str());
-    return fail("cannot write " + tmp + ": " + std::strerror(err));
+  std::string reason;
+  if (!WriteFileAtomic(path, text, &reason)) {
+    if (why) *why = reason;
+    return false;
   }
-  if (::close(fd) != 0) {
-    const int err = errno;
-    ::unlink(tmp.c_str());
-    return fail("cannot write " + tmp + ": " + std::strerror(err));
-  }
-  if (::rename(tmp.c_str(), path.c_str()) != 0) {
-    const int err = errno;
-    ::unlink(tmp.c_str());
-    return fail("cannot rename " + tmp + " to " + path + ": " + std::strerror(err));
-  }
-  // The rename is durable only once the directory entry is on disk.
-  const std::string dir = DirectoryOf(path);
-  const int dfd = ::open(dir.c_str(), O_RDONLY | O_DIRECTORY | O_CLOEXEC);
-  if (dfd < 0) return fail("written, but cannot open the directory " + dir + " to sync it: " + std::strerror(errno));
-  const int rc = ::fsync(dfd);
-  const int err = errno;
-  ::close(dfd);
-  if (rc != 0 && err != EINVAL) return fail("written, but cannot sync the directory " + dir + ": " + std::strerror(err));
   return true;
 }
 
