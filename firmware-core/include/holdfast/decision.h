@@ -31,6 +31,7 @@
 // going blind.
 #pragma once
 
+#include <algorithm>
 #include <array>
 #include <cstdint>
 #include <string>
@@ -128,6 +129,10 @@ class SegmentDecision {
   // tick length, inventory_rate_kg_s the tick's dM/dt. Allocates nothing.
   void Step(double t, double dt, bool valid, double imbalance_kg, double inventory_rate_kg_s);
   const DecisionResult& result() const { return result_; }
+
+  // An operating change seen elsewhere (a step in flow or pressure at the
+  // line ends): sensitivity is reduced from now for kTransientHold_s.
+  void MarkTransient(double t) { transient_until_s_ = std::max(transient_until_s_, t + kTransientHold_s); }
 
   // Seeds the learning (from a tuning file): bias, block sigma, phi.
   void Seed(double bias_kg_s, double sigma_kg_s, double phi);

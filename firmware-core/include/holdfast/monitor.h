@@ -121,6 +121,10 @@ class Monitor {
     // Time constant of the low-pass filter on the cumulative imbalance ahead
     // of the decision, s.
     double decision_inventory_filter_s = 300.0;
+    // An operating change: block-to-block step of the inlet flow beyond this
+    // fraction of nominal flow, or of an end pressure beyond this, Pa.
+    double transient_flow_fraction = 0.02;
+    double transient_pressure_pa = 0.5e5;
     // One alarm of each type per segment (ISA-18.2 states, alarm.h). Leak and
     // rupture alarms latch: they need an acknowledgement even if the
     // condition goes away.
@@ -208,6 +212,8 @@ class Monitor {
     std::vector<double> block_lateral;  // per meter, kg s
     double friction_scale = 1.0;
     int friction_blocks = 0;
+    bool have_prev_block = false;
+    double prev_block_q_in = 0.0, prev_block_p0 = 0.0, prev_block_p1 = 0.0;
     // Sums of block means since a leak hypothesis formed (location).
     int leak_blocks = 0;
     double leak_p0 = 0.0, leak_p1 = 0.0, leak_q_in = 0.0;

@@ -69,6 +69,10 @@ bool RuptureOptions::IsValid(std::string* why) const {
 }
 
 bool Monitor::Options::IsValid(std::string* why) const {
+  if (!(transient_flow_fraction > 0.0) || !(transient_pressure_pa > 0.0)) {
+    if (why) *why = "transient thresholds must be positive";
+    return false;
+  }
   if (!(decision_inventory_filter_s > 0.0)) {
     if (why) *why = "decision_inventory_filter_s must be positive";
     return false;
@@ -367,6 +371,7 @@ void Monitor::TickSegment(SegmentRuntime& s, double t, double dt) {
     }
     if (s.block_dt >= options_.decision.block_s - 1e-9) EndBlock(s, t);
   } else if (!valid) {
+    s.have_prev_block = false;
     s.block_dt = s.block_p_first = s.block_p_last = s.block_in = 0.0;
     std::fill(s.block_lateral.begin(), s.block_lateral.end(), 0.0);
   }
@@ -380,6 +385,18 @@ void Monitor::EndBlock(SegmentRuntime& s, double t) {
   const double p0 = s.block_p_first * inv, p1 = s.block_p_last * inv, q_in = s.block_in * inv;
   for (double& v : s.block_lateral) v *= inv;
   const double n = s.block_dt / site_->tick_s;
+  // Operating changes from the rates of change of flow and pressure at the
+  // line ends, block to block (the decision also watches the inventory rate).
+  if (s.have_prev_block) {
+    const double dq = std::fabs(q_in - s.prev_block_q_in);
+    const double dp = std::max(std::fabs(p0 - s.prev_block_p0), std::fabs(p1 - s.prev_block_p1));
+    if (dq > options_.transient_flow_fraction * s.spec->nominal_flow_kg_s || dp > options_.transient_pressure_pa)
+      s.decision.MarkTransient(t);
+  }
+  s.have_prev_block = true;
+  s.prev_block_q_in = q_in;
+  s.prev_block_p0 = p0;
+  s.prev_block_p1 = p1;
   const DecisionResult& d = s.decision.result();
   const bool quiet = (d.state == DecisionState::kWatching || d.state == DecisionState::kLearning) &&
                      !d.reduced_sensitivity;
