@@ -6,8 +6,10 @@
 #include <vector>
 
 #include "cli_commands.h"
+#include "event_json.h"
 #include "holdfast/monitor.h"
 #include "readings_csv.h"
+#include "replay_driver.h"
 #include "site_file.h"
 
 namespace holdfast::cli {
@@ -23,19 +25,6 @@ std::string Num(double v, const char* fmt = "%.6f") {
   char buf[64];
   std::snprintf(buf, sizeof buf, fmt, v);
   return buf;
-}
-
-// One alarm event as a JSON Lines record (documented in README, "Events").
-std::string EventJson(const Site& site, const AlarmEvent& e) {
-  std::string s = "{\"time\":\"" + FormatIsoUtc(e.time_s, 3) + "\",\"segment\":\"" + site.segments[e.segment].id +
-                  "\",\"type\":\"" + AlarmTypeName(e.type) + "\",\"state\":\"" + AlarmStateName(e.to) +
-                  "\",\"from\":\"" + AlarmStateName(e.from) + "\",\"cause\":\"" + AlarmCauseName(e.cause) +
-                  "\",\"priority\":\"" + AlarmPriorityName(e.priority) + "\",\"seq\":" + std::to_string(e.seq) +
-                  ",\"leak_rate_kg_s\":" + Num(e.evidence.leak_rate_kg_s) + ",\"location_m\":" +
-                  Num(e.evidence.location_m, "%.1f") + ",\"statistic\":" + Num(e.evidence.statistic, "%.4f") +
-                  ",\"threshold\":" + Num(e.evidence.threshold, "%.4f") + ",\"window_s\":" +
-                  Num(e.evidence.window_s, "%.1f") + ",\"user\":\"" + e.user + "\"}";
-  return s;
 }
 
 void WriteHeader(std::FILE* f, const BalanceArgs& a, const SegmentTick& t) {
@@ -143,49 +132,26 @@ int RunBalance(const BalanceArgs& a) {
       return 2;
     }
   }
-  uint64_t event_count = 0;
-  auto drain = [&] {
-    AlarmEvent e;
-    while (monitor.PopEvent(&e)) {
-      ++event_count;
-      if (events) std::fprintf(events, "%s\n", EventJson(site, e).c_str());
-    }
+  // The shared tick loop (replay_driver.h): events first, then the rows of
+  // the tick, so that both may go to standard output in a stable order.
+  ReplayOptions options;
+  options.on_event = [&](const AlarmEvent& e) {
+    if (events) std::fprintf(events, "%s\n", EventJson(site, e).c_str());
   };
-  const double tick = site.tick_s;
   bool header = false;
-  double next_tick = 0.0;
-  bool started = false;
   uint64_t ticks = 0;
-  auto do_tick = [&](double t) {
-    monitor.Advance(t);
-    drain();
-    if (ticks++ % static_cast<uint64_t>(a.every) != 0) return;
+  options.on_tick = [&](double) {
+    if (ticks++ % static_cast<uint64_t>(a.every) != 0) return true;
     for (int s = 0; s < monitor.segment_count(); ++s) {
       if (only >= 0 && s != only) continue;
       if (!header) { WriteHeader(out, a, monitor.segment(s)); header = true; }
       WriteRow(out, a, site.segments[s].id, monitor.segment(s));
     }
+    return true;
   };
-  Reading r;
-  double last_time = 0.0;
-  while (reader.Next(&r)) {
-    if (!started) {
-      next_tick = std::ceil(r.time_s / tick) * tick;
-      started = true;
-    }
-    while (r.time_s > next_tick) {
-      do_tick(next_tick);
-      next_tick += tick;
-    }
-    monitor.Feed(r);
-    if (r.time_s > last_time) last_time = r.time_s;
-  }
-  if (started) {
-    while (next_tick <= last_time + 1e-9) {
-      do_tick(next_tick);
-      next_tick += tick;
-    }
-  }
+  CsvReadingSource source(&reader);
+  const ReplayResult run = RunReplay(&monitor, &source, site.tick_s, options);
+  const uint64_t event_count = run.events;
   if (out != stdout) std::fclose(out);
   if (events && events != stdout) std::fclose(events);
   std::fprintf(stderr, "%s: %llu rows, %llu bad; %llu ticks; readings %s\n", reader.path().c_str(),
