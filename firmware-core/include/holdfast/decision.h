@@ -165,6 +165,7 @@ class SegmentDecision {
   double mean_ = 0.0, var_ = 0.0, cov1_ = 0.0, prev_dev_ = 0.0;
   double inv_mean_ = 0.0, inv_var_ = 0.0;
   double transient_until_s_ = -1e300;
+  bool seeded_ = false;  // Seed() was called: no warm-up
   // Blocks waiting to be learnt, oldest first (a ring of kMaxHeldBlocks):
   // block `index` is learnt once every detector has been at zero at or after
   // it and none is above freeze_ratio * h; the blocks after alarm_from_ (an

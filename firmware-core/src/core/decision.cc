@@ -106,6 +106,7 @@ bool SegmentDecision::Init(const DecisionOptions& options, double nominal_flow_k
   learnt_blocks_ = 0;
   mean_ = var_ = cov1_ = prev_dev_ = inv_mean_ = inv_var_ = 0.0;
   transient_until_s_ = -1e300;
+  seeded_ = false;
   held_.assign(kMaxHeldBlocks, HeldBlock{});
   held_head_ = held_n_ = 0;
   block_index_ = 0;
@@ -126,6 +127,7 @@ void SegmentDecision::Seed(double bias_kg_s, double sigma_kg_s, double phi) {
   result_.sigma_kg_s = sigma_kg_s;
   result_.phi = phi;
   deciding_ = ~0u;  // seeded values are trusted: every detector decides at once
+  seeded_ = true;
 }
 
 void SegmentDecision::ResetDetectors(int index, bool false_alarm) {
@@ -223,7 +225,8 @@ void SegmentDecision::EndBlock(double t) {
   const bool reduced = t < transient_until_s_;
   result_.reduced_sensitivity = reduced;
 
-  const bool warm = (t - start_s_) < options_.warmup_s || learnt_blocks_ < 20;
+  // Seeded values need no warm-up: decisions start with the first block.
+  const bool warm = !seeded_ && ((t - start_s_) < options_.warmup_s || learnt_blocks_ < 20);
   if (warm) {
     Learn(r, inv_rate);
     result_.state = DecisionState::kLearning;

@@ -590,7 +590,8 @@ void Monitor::UpdateAlarms(SegmentRuntime& s, int index, double t) {
       ev.leak_rate_kg_s = d.leak_rate_kg_s;
       ev.statistic = lead.statistic;
       ev.threshold = lead.h;
-      ev.window_s = t - lead.change_point_s;
+      // Time since the change point (NaN before the detector has one).
+      ev.window_s = lead.change_point_s > 0.0 ? t - lead.change_point_s : kNaN;
     }
     if (out.location.valid) ev.location_m = out.location.chainage_m;
     a[static_cast<int>(AlarmType::kLeak)].Update(t, d.state == DecisionState::kLeak, ev);
