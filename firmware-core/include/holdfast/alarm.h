@@ -319,6 +319,7 @@ class Alarm {
   bool Admit(double t, AlarmResult* rejection) const;
   // Ends a shelve whose time has come (one event); sets *expired if so.
   void ExpireShelve(double t, bool* expired);
+  bool BeginCommand(double t, const std::string_view* user, bool* expired, AlarmResult* rejection);
   void Go(double t, AlarmState to, AlarmCause cause, std::string_view user);
   // The state a shelve/suppression/out-of-service ends in.
   AlarmState ExitState() const {

@@ -258,13 +258,24 @@ AlarmResult Alarm::Update(double t, bool condition_active, const AlarmEvidence& 
   return AlarmResult::kApplied;
 }
 
+// The common start of an operator or design command: admit the time, check
+// the operator's name (when one is given), take the time and end a shelve
+// whose time has come. False, with the rejection, when the command is refused.
+bool Alarm::BeginCommand(double t, const std::string_view* user, bool* expired, AlarmResult* rejection) {
+  if (!Admit(t, rejection)) return false;
+  if (user != nullptr && !ValidUser(*user)) {
+    *rejection = AlarmResult::kRejectedInvalidArgument;
+    return false;
+  }
+  last_t_ = t;
+  ExpireShelve(t, expired);
+  return true;
+}
+
 AlarmResult Alarm::Acknowledge(double t, std::string_view user) {
   AlarmResult rejection{};
-  if (!Admit(t, &rejection)) return rejection;
   bool expired = false;
-  if (!ValidUser(user)) return AlarmResult::kRejectedInvalidArgument;
-  last_t_ = t;
-  ExpireShelve(t, &expired);
+  if (!BeginCommand(t, &user, &expired, &rejection)) return rejection;
   AlarmResult own = AlarmResult::kRejectedInvalidInState;
   switch (state_) {
     case AlarmState::kNormal:
@@ -325,11 +336,8 @@ AlarmResult Alarm::Shelve(double t, double duration_s, std::string_view user) {
 
 AlarmResult Alarm::Unshelve(double t, std::string_view user) {
   AlarmResult rejection{};
-  if (!Admit(t, &rejection)) return rejection;
   bool expired = false;
-  if (!ValidUser(user)) return AlarmResult::kRejectedInvalidArgument;
-  last_t_ = t;
-  ExpireShelve(t, &expired);
+  if (!BeginCommand(t, &user, &expired, &rejection)) return rejection;
   AlarmResult own = AlarmResult::kRejectedInvalidInState;
   if (state_ == AlarmState::kShelved) {
     Go(t, ExitState(), AlarmCause::kUnshelved, user);
@@ -340,10 +348,8 @@ AlarmResult Alarm::Unshelve(double t, std::string_view user) {
 
 AlarmResult Alarm::Suppress(double t) {
   AlarmResult rejection{};
-  if (!Admit(t, &rejection)) return rejection;
   bool expired = false;
-  last_t_ = t;
-  ExpireShelve(t, &expired);
+  if (!BeginCommand(t, nullptr, &expired, &rejection)) return rejection;
   AlarmResult own = AlarmResult::kRejectedInvalidInState;
   switch (state_) {
     case AlarmState::kNormal:
@@ -366,10 +372,8 @@ AlarmResult Alarm::Suppress(double t) {
 
 AlarmResult Alarm::Unsuppress(double t) {
   AlarmResult rejection{};
-  if (!Admit(t, &rejection)) return rejection;
   bool expired = false;
-  last_t_ = t;
-  ExpireShelve(t, &expired);
+  if (!BeginCommand(t, nullptr, &expired, &rejection)) return rejection;
   AlarmResult own = AlarmResult::kNoChange;
   if (state_ == AlarmState::kSuppressed) {
     Go(t, ExitState(), AlarmCause::kUnsuppressed, {});
@@ -380,11 +384,8 @@ AlarmResult Alarm::Unsuppress(double t) {
 
 AlarmResult Alarm::RemoveFromService(double t, std::string_view user) {
   AlarmResult rejection{};
-  if (!Admit(t, &rejection)) return rejection;
   bool expired = false;
-  if (!ValidUser(user)) return AlarmResult::kRejectedInvalidArgument;
-  last_t_ = t;
-  ExpireShelve(t, &expired);
+  if (!BeginCommand(t, &user, &expired, &rejection)) return rejection;
   AlarmResult own = AlarmResult::kNoChange;
   if (state_ != AlarmState::kOutOfService) {
     Go(t, AlarmState::kOutOfService, AlarmCause::kRemovedFromService, user);
@@ -395,11 +396,8 @@ AlarmResult Alarm::RemoveFromService(double t, std::string_view user) {
 
 AlarmResult Alarm::ReturnToService(double t, std::string_view user) {
   AlarmResult rejection{};
-  if (!Admit(t, &rejection)) return rejection;
   bool expired = false;
-  if (!ValidUser(user)) return AlarmResult::kRejectedInvalidArgument;
-  last_t_ = t;
-  ExpireShelve(t, &expired);
+  if (!BeginCommand(t, &user, &expired, &rejection)) return rejection;
   AlarmResult own = AlarmResult::kRejectedInvalidInState;
   if (state_ == AlarmState::kOutOfService) {
     Go(t, ExitState(), AlarmCause::kReturnedToService, user);
