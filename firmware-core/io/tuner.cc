@@ -181,8 +181,10 @@ double RobustSigmaOf(const std::vector<double>& v, double median) {
   return kMadToSigma * MedianOf(dev);
 }
 
-bool Tuner::Init(const Site& site, const DecisionOptions& decision, double inventory_filter_s, std::string* why) {
-  if (!decision.IsValid(why)) return false;
+bool Tuner::Init(const Site& site, const Monitor::Options& options, std::string* why) {
+  if (!options.IsValid(why)) return false;
+  const DecisionOptions& decision = options.decision;
+  const double inventory_filter_s = options.decision_inventory_filter_s;
   if (!(decision.block_s >= site.tick_s)) {
     *why = "block of " + std::to_string(decision.block_s) + " s is shorter than the site's tick";
     return false;
@@ -194,7 +196,7 @@ bool Tuner::Init(const Site& site, const DecisionOptions& decision, double inven
   site_ = &site;
   decision_ = decision;
   filter_s_ = inventory_filter_s;
-  builders_.assign(site.segments.size(), Builder(inventory_filter_s));
+  builders_.assign(site.segments.size(), Builder(inventory_filter_s, options.decision_settle_s));
   ticked_ = false;
   prev_tick_s_ = 0.0;
   ticks_ = 0;
@@ -219,9 +221,13 @@ void Tuner::TickSegment(Builder* b, const SegmentTick& t, double dt) const {
     if (b->dt > 0.0) ++b->dropped;  // a partial block across a gap is dropped
     b->kg = b->raw_kg = b->dt = b->inv_kg = 0.0;
     b->start_s = t.time_s;
-    b->filter_start_s = t.time_s;
+    // The filter restarts at the first tick of a gap; the ticks after it
+    // while it settles are not valid either.
+    if (!b->in_gap) b->filter_start_s = t.time_s;
+    b->in_gap = true;
     return;
   }
+  b->in_gap = false;
   b->kg += b->input.imbalance_kg();
   b->raw_kg += t.residual_kg_s * dt;
   b->inv_kg += b->input.inventory_rate_kg_s() * dt;

@@ -4,7 +4,7 @@
 // detection time). `holdfast tune` and `holdfast evaluate` both use it.
 //
 //   holdfast::Tuner tuner;
-//   tuner.Init(site, decision_options, monitor_options.decision_inventory_filter_s, &why);
+//   tuner.Init(site, monitor_options, &why);
 //   ... RunReplay(&monitor, &source, site.tick_s, {.on_tick = [&](double t) {
 //         tuner.Tick(monitor, t); return true; }});
 //   holdfast::TuningFile file;
@@ -65,9 +65,9 @@ class Tuner {
   // is worth a warning (two-sided, 0.27 % of leak-free runs if normal).
   static constexpr double kDriftWarnZ = 3.0;
 
-  // `decision` gives the block length, the budget and the bank;
-  // inventory_filter_s must be the monitor's decision_inventory_filter_s.
-  bool Init(const Site& site, const DecisionOptions& decision, double inventory_filter_s, std::string* why);
+  // The options of the monitor the ticks come from: the decision's block
+  // length, budget and bank, and the filter ahead of it.
+  bool Init(const Site& site, const Monitor::Options& options, std::string* why);
 
   // After every Monitor::Advance(t) of a monitor on the same site.
   void Tick(const Monitor& monitor, double t);
@@ -87,9 +87,10 @@ class Tuner {
     double raw_r_kg_s = 0.0;  // mean plain balance residual
   };
   struct Builder {
-    explicit Builder(double filter_s) : input(filter_s) {}
+    Builder(double filter_s, double settle_s) : input(filter_s, settle_s) {}
     DecisionInput input;
     double filter_start_s = 0.0;
+    bool in_gap = false;  // the previous tick was not valid (false at first: the first tick starts a gap)
     double kg = 0.0, raw_kg = 0.0, dt = 0.0, inv_kg = 0.0, start_s = 0.0;
     std::vector<Block> blocks;
     int64_t dropped = 0, settling = 0;

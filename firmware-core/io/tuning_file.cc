@@ -493,7 +493,8 @@ bool ApplyTuning(const TuningFile& file, Monitor* monitor, std::string* why) {
       if (site.segments[i].id == s.segment) index = static_cast<int>(i);
     if (index < 0) return fail("tuning: no segment " + Quote(s.segment) + " in the monitor's site");
     if (!monitor->segment(index).decision_enabled) continue;  // no nominal flow: no decision stage
-    if (!monitor->SeedDecision(index, s.bias_kg_s, s.sigma_kg_s, s.phi))
+    if (!monitor->SeedDecision(index, s.bias_kg_s, s.sigma_kg_s, s.phi, s.inventory_rate_kg_s,
+                               s.inventory_rate_sigma_kg_s))
       return fail("tuning: segment " + Quote(s.segment) + ": the monitor refused bias " + Shown(s.bias_kg_s) +
                   " kg/s, sigma " + Shown(s.sigma_kg_s) + " kg/s, phi " + Shown(s.phi));
   }
@@ -504,17 +505,27 @@ void DecisionInput::Tick(const SegmentTick& t, double dt) {
   const bool available = t.status != SegmentStatus::kUnavailable;
   // The balance has a difference only when this tick and the one before had
   // a balance (SegmentBalance::has_difference).
-  valid_ = started_ && available && prev_available_ && dt > 0.0;
+  const bool ok = started_ && available && prev_available_ && dt > 0.0;
   started_ = true;
   prev_available_ = available;
-  if (!valid_) {
+  valid_ = false;
+  imbalance_kg_ = inventory_rate_kg_s_ = 0.0;
+  if (!ok) {
     cumulative_kg_ = filtered_kg_ = 0.0;
-    imbalance_kg_ = inventory_rate_kg_s_ = 0.0;
+    running_ = false;
     return;
+  }
+  if (!running_) {
+    running_ = true;
+    filter_start_s_ = t.time_s;
   }
   cumulative_kg_ += t.residual_kg_s * dt;
   const double before = filtered_kg_;
   filtered_kg_ += (1.0 - std::exp(-dt / filter_s_)) * (cumulative_kg_ - filtered_kg_);
+  // The monitor's decision ignores the filter while it settles
+  // (Monitor::Options::decision_settle_s).
+  if (t.time_s - filter_start_s_ < settle_s_) return;
+  valid_ = true;
   imbalance_kg_ = filtered_kg_ - before;
   inventory_rate_kg_s_ = t.inventory_rate_kg_s;
 }

@@ -130,7 +130,9 @@ namespace holdfast {
 // sees, that test fails and this must follow.
 class DecisionInput {
  public:
-  explicit DecisionInput(double filter_s) : filter_s_(filter_s) {}
+  // filter_s and settle_s: Monitor::Options::decision_inventory_filter_s and
+  // decision_settle_s.
+  DecisionInput(double filter_s, double settle_s) : filter_s_(filter_s), settle_s_(settle_s) {}
   // One tick of the segment; dt is the time since the previous tick (0 for
   // the first).
   void Tick(const SegmentTick& t, double dt);
@@ -139,8 +141,9 @@ class DecisionInput {
   double inventory_rate_kg_s() const { return inventory_rate_kg_s_; }  // 0 when not valid
 
  private:
-  double filter_s_;
-  bool started_ = false, prev_available_ = false, valid_ = false;
+  double filter_s_, settle_s_;
+  double filter_start_s_ = 0.0;
+  bool started_ = false, prev_available_ = false, valid_ = false, running_ = false;
   double cumulative_kg_ = 0.0, filtered_kg_ = 0.0;
   double imbalance_kg_ = 0.0, inventory_rate_kg_s_ = 0.0;
 };

@@ -193,7 +193,7 @@ int RunTune(const TuneArgs& a) {
   }
 
   Tuner tuner;
-  if (!tuner.Init(site, dopt, mopt.decision_inventory_filter_s, &why)) {
+  if (!tuner.Init(site, mopt, &why)) {
     std::fprintf(stderr, "--block-s %g --budget-days %g: %s\n", a.block_s, a.budget_days, why.c_str());
     return 2;
   }

@@ -400,7 +400,7 @@ TEST_F(TuningFileTest, DecisionInputRebuildsWhatTheMonitorsDecisionSees) {
       << why;
   SegmentDecision replica;
   ASSERT_TRUE(replica.Init(options.decision, site_.segments[0].nominal_flow_kg_s, &table, &why)) << why;
-  DecisionInput input(options.decision_inventory_filter_s);
+  DecisionInput input(options.decision_inventory_filter_s, options.decision_settle_s);
 
   std::mt19937_64 rng(20261202);
   std::normal_distribution<double> n01(0.0, 1.0);

@@ -33,6 +33,8 @@
 
 #include <algorithm>
 #include <array>
+#include <cmath>
+#include <limits>
 #include <cstdint>
 #include <string>
 #include <vector>
@@ -134,8 +136,15 @@ class SegmentDecision {
   // line ends): sensitivity is reduced from now for kTransientHold_s.
   void MarkTransient(double t) { transient_until_s_ = std::max(transient_until_s_, t + kTransientHold_s); }
 
-  // Seeds the learning (from a tuning file): bias, block sigma, phi.
-  void Seed(double bias_kg_s, double sigma_kg_s, double phi);
+  // Seeds the learning (from a tuning file): bias, block sigma, phi, and the
+  // block inventory rate's mean and sigma behind the transient test. Without
+  // the latter (NaN), the transient test waits for 30 blocks of its own.
+  void Seed(double bias_kg_s, double sigma_kg_s, double phi,
+            double inventory_rate_kg_s = std::numeric_limits<double>::quiet_NaN(),
+            double inventory_rate_sigma_kg_s = std::numeric_limits<double>::quiet_NaN());
+  // The learnt block inventory rate (transient test): mean and sigma.
+  double inventory_rate_kg_s() const { return inv_mean_; }
+  double inventory_rate_sigma_kg_s() const { return inv_var_ > 0.0 ? std::sqrt(inv_var_) : 0.0; }
 
   // Restarts the CUSUMs after an alarm has been handled: detector `index`, or
   // every detector when index < 0. Its statistic, change point (the last
@@ -164,6 +173,7 @@ class SegmentDecision {
   int64_t learnt_blocks_ = 0;
   double mean_ = 0.0, var_ = 0.0, cov1_ = 0.0, prev_dev_ = 0.0;
   double inv_mean_ = 0.0, inv_var_ = 0.0;
+  int64_t inv_blocks_ = 0;  // blocks behind inv_mean_ / inv_var_ (its own count: seeding may skip it)
   double transient_until_s_ = -1e300;
   bool seeded_ = false;  // Seed() was called: no warm-up
   // Blocks waiting to be learnt, oldest first (a ring of kMaxHeldBlocks):

@@ -121,6 +121,13 @@ class Monitor {
     // Time constant of the low-pass filter on the cumulative imbalance ahead
     // of the decision, s.
     double decision_inventory_filter_s = 300.0;
+    // After the filter (re)starts (the first balance, or the first after a
+    // gap) the decision ignores this long of its output: the filter starts
+    // from zero while C carries the noise of the inventory it started from
+    // (one tank gauge reading can be a tonne), which the filter would pass on
+    // as a decaying false shortfall. Three time constants leave exp(-3) = 5 %
+    // of it. The rupture fast path is not affected.
+    double decision_settle_s = 900.0;
     // An operating change: block-to-block step of the inlet flow beyond this
     // fraction of nominal flow, or of an end pressure beyond this, Pa.
     double transient_flow_fraction = 0.02;
@@ -153,7 +160,8 @@ class Monitor {
   // Seeds a segment's learnt residual statistics (from a tuning file):
   // block bias and standard deviation (kg/s) and lag-one autocorrelation.
   // False if the segment has no decision stage (no nominal flow).
-  bool SeedDecision(int segment, double bias_kg_s, double sigma_kg_s, double phi);
+  bool SeedDecision(int segment, double bias_kg_s, double sigma_kg_s, double phi,
+                    double inventory_rate_kg_s = kNaN, double inventory_rate_sigma_kg_s = kNaN);
 
   // Alarm events, oldest first, from an internal ring of kEventRingSize (the
   // oldest are overwritten and counted when nobody drains it), unless a sink
@@ -207,6 +215,8 @@ class Monitor {
     double dq_since_s = kNaN, unavailable_since_s = kNaN;  // on-delay clocks
     double cumulative_kg = 0.0, cumulative_filtered_kg = 0.0;
     double filter_dt = -1.0, filter_gain = 0.0;
+    double filter_start_s = 0.0;  // when the filter last (re)started
+    bool filter_running = false;
     int p_first = -1, p_last = -1;
     double block_dt = 0.0, block_p_first = 0.0, block_p_last = 0.0, block_in = 0.0;
     std::vector<double> block_lateral;  // per meter, kg s

@@ -104,6 +104,7 @@ bool SegmentDecision::Init(const DecisionOptions& options, double nominal_flow_k
   started_ = false;
   block_kg_ = block_dt_ = block_inv_kg_ = 0.0;
   learnt_blocks_ = 0;
+  inv_blocks_ = 0;
   mean_ = var_ = cov1_ = prev_dev_ = inv_mean_ = inv_var_ = 0.0;
   transient_until_s_ = -1e300;
   seeded_ = false;
@@ -118,7 +119,17 @@ bool SegmentDecision::Init(const DecisionOptions& options, double nominal_flow_k
   return true;
 }
 
-void SegmentDecision::Seed(double bias_kg_s, double sigma_kg_s, double phi) {
+void SegmentDecision::Seed(double bias_kg_s, double sigma_kg_s, double phi, double inventory_rate_kg_s,
+                           double inventory_rate_sigma_kg_s) {
+  // The inventory-rate statistics must come with the rest or be learnt
+  // afresh: left at zero variance behind a seeded (large) block count, the
+  // transient test called every block a transient, and the reduced
+  // sensitivity then held off the very learning that would end it.
+  if (std::isfinite(inventory_rate_kg_s) && inventory_rate_sigma_kg_s > 0.0) {
+    inv_mean_ = inventory_rate_kg_s;
+    inv_var_ = inventory_rate_sigma_kg_s * inventory_rate_sigma_kg_s;
+    inv_blocks_ = std::max<int64_t>(inv_blocks_, 1000);
+  }
   mean_ = bias_kg_s;
   var_ = sigma_kg_s * sigma_kg_s;
   cov1_ = phi * var_;
@@ -185,9 +196,11 @@ void SegmentDecision::Learn(double r, double inv_rate) {
   var_ = (1.0 - w) * (var_ + w * dev * dev);
   cov1_ = (1.0 - w) * cov1_ + w * dev * prev_dev_;
   prev_dev_ = dev;
+  const int64_t n_inv = ++inv_blocks_;
+  const double w_inv = std::max(1.0 / static_cast<double>(n_inv), options_.block_s / options_.learning_time_constant_s);
   const double idev = inv_rate - inv_mean_;
-  inv_mean_ += w * idev;
-  inv_var_ = (1.0 - w) * (inv_var_ + w * idev * idev);
+  inv_mean_ += w_inv * idev;
+  inv_var_ = (1.0 - w_inv) * (inv_var_ + w_inv * idev * idev);
 }
 
 void SegmentDecision::Step(double t, double dt, bool valid, double imbalance_kg, double inventory_rate_kg_s) {
@@ -218,7 +231,7 @@ void SegmentDecision::EndBlock(double t) {
   block_start_s_ = t;
 
   // Transient: an inventory rate far outside its learnt spread.
-  if (learnt_blocks_ > 30 && inv_var_ > 0.0 &&
+  if (inv_blocks_ > 30 && inv_var_ > 0.0 &&
       std::fabs(inv_rate - inv_mean_) > kTransientSigmas * std::sqrt(inv_var_)) {
     transient_until_s_ = t + kTransientHold_s;
   }

@@ -73,6 +73,10 @@ bool Monitor::Options::IsValid(std::string* why) const {
     if (why) *why = "transient thresholds must be positive";
     return false;
   }
+  if (!(decision_settle_s >= 0.0) || !std::isfinite(decision_settle_s)) {
+    if (why) *why = "decision_settle_s must be zero or positive";
+    return false;
+  }
   if (!(decision_inventory_filter_s > 0.0)) {
     if (why) *why = "decision_inventory_filter_s must be positive";
     return false;
@@ -236,12 +240,13 @@ bool Monitor::InitSegments(std::string* why) {
   return true;
 }
 
-bool Monitor::SeedDecision(int segment, double bias_kg_s, double sigma_kg_s, double phi) {
+bool Monitor::SeedDecision(int segment, double bias_kg_s, double sigma_kg_s, double phi, double inventory_rate_kg_s,
+                           double inventory_rate_sigma_kg_s) {
   if (segment < 0 || segment >= segment_count()) return false;
   SegmentRuntime& s = segments_[segment];
   if (!s.decision_enabled || !std::isfinite(bias_kg_s) || !(sigma_kg_s > 0.0) || !(phi > -1.0 && phi < 1.0))
     return false;
-  s.decision.Seed(bias_kg_s, sigma_kg_s, phi);
+  s.decision.Seed(bias_kg_s, sigma_kg_s, phi, inventory_rate_kg_s, inventory_rate_sigma_kg_s);
   return true;
 }
 
@@ -310,6 +315,10 @@ void Monitor::TickSegment(SegmentRuntime& s, double t, double dt) {
     const bool ok = !unavailable && s.balance.has_difference();
     double imbalance_kg = 0.0;
     if (ok) {
+      if (!s.filter_running) {
+        s.filter_running = true;
+        s.filter_start_s = t;
+      }
       if (dt != s.filter_dt) {
         s.filter_dt = dt;
         s.filter_gain = 1.0 - std::exp(-dt / options_.decision_inventory_filter_s);
@@ -320,9 +329,11 @@ void Monitor::TickSegment(SegmentRuntime& s, double t, double dt) {
       imbalance_kg = s.cumulative_filtered_kg - before;
     } else {
       s.cumulative_kg = s.cumulative_filtered_kg = 0.0;
+      s.filter_running = false;
     }
-    const double inv_rate = ok ? s.balance.inventory_rate_kg_s() : 0.0;
-    s.decision.Step(t, dt, ok, imbalance_kg, inv_rate);
+    const bool settled = ok && t - s.filter_start_s >= options_.decision_settle_s;
+    const double inv_rate = settled ? s.balance.inventory_rate_kg_s() : 0.0;
+    s.decision.Step(t, dt, settled, settled ? imbalance_kg : 0.0, inv_rate);
     out.decision = s.decision.result();
   }
   out.time_s = t;

@@ -29,6 +29,8 @@ std::string Monitor::SaveState() const {
       j["bias_kg_s"] = d.bias_kg_s;
       j["sigma_kg_s"] = d.sigma_kg_s;
       j["phi"] = d.phi;
+      j["inventory_rate_kg_s"] = s.decision.inventory_rate_kg_s();
+      j["inventory_rate_sigma_kg_s"] = s.decision.inventory_rate_sigma_kg_s();
     }
     segs.push_back(j);
   }
@@ -84,7 +86,8 @@ bool Monitor::RestoreState(const std::string& blob, std::string* why) {
     }
     if (s.decision_enabled && j.contains("sigma_kg_s") && j["sigma_kg_s"].is_number() &&
         j["bias_kg_s"].is_number() && j["phi"].is_number())
-      s.decision.Seed(j["bias_kg_s"].get<double>(), j["sigma_kg_s"].get<double>(), j["phi"].get<double>());
+      s.decision.Seed(j["bias_kg_s"].get<double>(), j["sigma_kg_s"].get<double>(), j["phi"].get<double>(),
+                      j.value("inventory_rate_kg_s", kNaN), j.value("inventory_rate_sigma_kg_s", kNaN));
     if (s.decision_enabled) s.tick.decision = s.decision.result();
     for (int k = 0; k < kAlarmTypeCount; ++k) s.tick.alarms[k] = alarms_[i * kAlarmTypeCount + k].state();
   }
