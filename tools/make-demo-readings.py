@@ -33,7 +33,7 @@ construction:
   towards the ground temperature with the site's thermal time constant while
   it travels with the flow (parcel age tracked on the grid). The receiving
   tank's contents are taken to be at the temperature of the arriving oil,
-  which is what the site's tank temperature point (MB-TT-301, on the line at
+  which is what the line's end temperature point (MB-TT-301, on the line at
   km 48) measures.
 * Line pack: sum of rho*A*dx over 200 reaches at the actual (P, T).
 * Tank: mass(t) = mass(0) + integral(inlet - delivery - leak) - (line pack(t)
@@ -98,6 +98,12 @@ SAMPLING = {
     "CF-TT-101": (10.0, 0.200), "MB-TT-301": (10.0, 5.300), "MB-LT-301": (5.0, 2.600),
 }
 POINT_ORDER = list(SAMPLING)
+# The tank's own thermometer (the contents, here at the arriving temperature)
+# came after the first version of this file: its readings are drawn from a
+# stream of their own and merged in at the end, so that every other reading
+# is what it always was.
+TANK_THERMOMETER = "MB-TT-302"
+TANK_THERMOMETER_SAMPLING = (10.0, 7.700)
 JITTER_MS = 15  # timestamps jitter by up to this many milliseconds either way
 
 # Fixed instrument biases, each inside the point's declared systematic accuracy
@@ -112,6 +118,7 @@ BIAS = {
     "MB-PT-301": 0.01,
     "CF-TT-101": 0.08,     # K
     "MB-TT-301": -0.05,
+    "MB-TT-302": 0.04,
     "MB-LT-301": 0.0015,   # m
 }
 DECIMALS = {"flow": 2, "pressure": 3, "temperature": 2, "level": 4}
@@ -383,7 +390,7 @@ def main():
 
     # True values per second for every point, in the point's own unit.
     steps = int(round(DURATION_S / STEP_S))
-    truth_series = {pid: [0.0] * (steps + 2) for pid in POINT_ORDER}
+    truth_series = {pid: [0.0] * (steps + 2) for pid in POINT_ORDER + [TANK_THERMOMETER]}
     series = []
 
     def record(i, t):
@@ -395,6 +402,7 @@ def main():
             truth_series[pid][i] = (p[node] - rho * G * gauge_dz[pid] - p_atm) / 1e5
         truth_series["CF-TT-101"][i] = temps[i_in] - 273.15
         truth_series["MB-TT-301"][i] = temps[i_out] - 273.15
+        truth_series["MB-TT-302"][i] = t_tank - 273.15
         truth_series["MB-LT-301"][i] = level
         if i % int(SERIES_EVERY_S / STEP_S) == 0:
             series.append({
@@ -528,6 +536,34 @@ def main():
             out_lines.append(extra)
         out_lines.extend(edits.get(i, [text]))
 
+    rng_tank = random.Random(SEED + 302)
+    tank_rows = []
+    period, phase = TANK_THERMOMETER_SAMPLING
+    acc = points[TANK_THERMOMETER]["accuracy"]
+    k = 0
+    while True:
+        t = phase + k * period
+        k += 1
+        if t > DURATION_S:
+            break
+        ms = max(int(round(t * 1000)) + rng_tank.randint(-JITTER_MS, JITTER_MS), 0)
+        ts = ms / 1000.0
+        j = min(int(ts // STEP_S), steps)
+        w = ts / STEP_S - j
+        s = truth_series[TANK_THERMOMETER]
+        true = s[j] + w * (s[j + 1] - s[j])
+        value = true + BIAS[TANK_THERMOMETER] + rng_tank.gauss(0.0, acc["random"])
+        tank_rows.append("%s,%s,%.*f,good" % (iso(ms), TANK_THERMOMETER, DECIMALS["temperature"], value))
+    merged, j = [], 0
+    for row in tank_rows:
+        stamp = row[:24]
+        while j < len(out_lines) and out_lines[j][:24] <= stamp:
+            merged.append(out_lines[j])
+            j += 1
+        merged.append(row)
+    merged.extend(out_lines[j:])
+    out_lines = merged
+
     with open(args.out, "w", newline="\n") as f:
         f.write("time,point,value,quality\n")
         f.write("\n".join(out_lines))
@@ -573,7 +609,7 @@ def main():
         "instrument_biases": {
             "flows_fraction_of_reading": {k: BIAS[k] for k in ("CF-FT-101", "TJ-FT-201", "MB-FT-302")},
             "pressures_bar": {k: BIAS[k] for k in ("CF-PT-101", "TJ-PT-201", "MB-PT-301")},
-            "temperatures_k": {k: BIAS[k] for k in ("CF-TT-101", "MB-TT-301")},
+            "temperatures_k": {k: BIAS[k] for k in ("CF-TT-101", "MB-TT-301", "MB-TT-302")},
             "level_m": {"MB-LT-301": BIAS["MB-LT-301"]},
         },
         "blemishes": {k: [{"reading": v, "csv_lines": line_of(v)} for v in vs] for k, vs in blemishes.items()},

@@ -562,7 +562,7 @@ TEST(DemoReadings, BlemishesAreCounted) {
   if (!std::filesystem::exists(path)) GTEST_SKIP() << "no " << path;
   Site site;
   for (const char* id : {"CF-FT-101", "CF-PT-101", "CF-TT-101", "TJ-FT-201", "TJ-PT-201", "MB-PT-301",
-                         "MB-TT-301", "MB-LT-301", "MB-FT-302"}) {
+                         "MB-TT-301", "MB-TT-302", "MB-LT-301", "MB-FT-302"}) {
     PointSpec p;
     p.id = id;
     site.points.push_back(p);

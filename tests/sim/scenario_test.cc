@@ -93,7 +93,7 @@ TEST(Scenario, DemoCompilesToWhatItSays) {
   EXPECT_NEAR(m.ground_temperature_k, 284.15, 1e-9);
   EXPECT_DOUBLE_EQ(m.thermal_time_constant_s, 36000.0);
   // Every point of the segment gets readings, with the site's accuracies as defaults.
-  EXPECT_EQ(sc.points.size(), 9u);
+  EXPECT_EQ(sc.points.size(), 10u);
   for (const PointPlan& p : sc.points) {
     const PointSpec& ps = site.points[static_cast<size_t>(p.point)];
     if (ps.id == "CF-PT-101") {
@@ -106,7 +106,11 @@ TEST(Scenario, DemoCompilesToWhatItSays) {
       EXPECT_EQ(p.measure, Measure::kTankOutflow);
     }
     if (ps.id == "MB-TT-301") {
+      EXPECT_EQ(p.measure, Measure::kTemperature);  // on the line at 48 km
       EXPECT_DOUBLE_EQ(p.instrument.sample_period_s, 10.0);
+    }
+    if (ps.id == "MB-TT-302") {
+      EXPECT_EQ(p.measure, Measure::kTankTemperature);  // the tank's own thermometer: the contents
     }
     if (ps.id == "MB-LT-301") {
       EXPECT_EQ(p.measure, Measure::kTankLevel);
