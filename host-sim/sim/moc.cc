@@ -951,6 +951,8 @@ bool MocModel::Init(const MocSetup& setup, std::string* why) {
     tank_level_ = TankLevelFromMass(tank_mass_, tank_t_);
     tank_level_prev_ = tank_level_;
     double out = s.downstream.tank_outflow.At(0.0);
+    if (std::isfinite(s.downstream.tank_level_setpoint_m))
+      out += s.downstream.tank_level_gain_per_m * (tank_level_ - s.downstream.tank_level_setpoint_m);
     if (s.downstream.flow_is_volume) out *= tank_rho_;
     tank_out_[0] = tank_out_[1] = std::max(0.0, out);
   }
@@ -1205,7 +1207,10 @@ void MocModel::Step() {
 
   // Receiving tank: fills with the pipe outflow, empties through its outlet.
   if (s.downstream.type == DownstreamType::kTank) {
-    double q_out = std::max(0.0, s.downstream.tank_outflow.At(t1));
+    double q_out = s.downstream.tank_outflow.At(t1);
+    if (std::isfinite(s.downstream.tank_level_setpoint_m))
+      q_out += s.downstream.tank_level_gain_per_m * (tank_level_ - s.downstream.tank_level_setpoint_m);
+    q_out = std::max(0.0, q_out);
     if (s.downstream.flow_is_volume) q_out *= tank_rho_;
     tank_out_[1] = tank_out_[0];
     tank_out_[0] = tank_mass_ > 0.0 ? q_out : 0.0;

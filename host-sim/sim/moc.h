@@ -130,6 +130,10 @@ struct DownstreamSetup {
   double tank_initial_temperature_k = kNaN;  // NaN: the arriving temperature
   bool tank_mixed = true;   // contents mix (mass-weighted); false: take the arriving temperature
   Channel tank_outflow{0.0};  // kg/s (or m3/s when flow_is_volume)
+  // Proportional level control of the outflow: outflow = tank_outflow +
+  // gain * (level - setpoint), never negative. NaN setpoint: no control.
+  double tank_level_setpoint_m = kNaN;
+  double tank_level_gain_per_m = 0.0;  // kg/s per m (or m3/s per m when flow_is_volume)
   // Flow: controlled delivery, mass flow kg/s or volume at line conditions m3/s.
   Channel flow{0.0};
   bool flow_is_volume = false;

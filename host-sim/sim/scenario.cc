@@ -562,8 +562,8 @@ void Compiler::CompileDownstream(const json& doc) {
     std::snprintf(buf, sizeof buf, "reservoir, head %.2f m", head);
   } else if (type == "tank") {
     CheckKeys(*dn, path,
-              {"type", "tank", "initial_level_m", "base_elevation_m", "outflow", "contents_temperature", "initial_temperature",
-               "valve"});
+              {"type", "tank", "initial_level_m", "base_elevation_m", "outflow", "level_control", "contents_temperature",
+               "initial_temperature", "valve"});
     d.type = DownstreamType::kTank;
     std::string id;
     const Got gt = String(*dn, "tank", path, seg_->tanks.size() == 1 ? Need::kOptional : Need::kRequired, &id,
@@ -589,6 +589,25 @@ void Compiler::CompileDownstream(const json& doc) {
     if (Flow(*dn, "outflow", path, Need::kOptional, &out, &d.flow_is_volume) == Got::kOk) {
       d.tank_outflow.Set(out);
       tank_out_fixed_ = 1;
+    }
+    const json* lc = nullptr;
+    if (Object(*dn, "level_control", path, Need::kOptional, &lc) == Got::kOk) {
+      const std::string lpath = path + "/level_control";
+      CheckKeys(*lc, lpath, {"setpoint_m", "gain_per_m"});
+      double sp = 0.0, gain = 0.0;
+      bool gain_volume = false;
+      if (NonNegative(*lc, "setpoint_m", lpath, Need::kRequired, &sp) == Got::kOk) {
+        d.tank_level_setpoint_m = sp;
+        if (!d.strapping.empty() && sp > d.strapping.back().level_m)
+          Add(lpath + "/setpoint_m", "is above the strapping table (" + Num(d.strapping.back().level_m) + " m)");
+      }
+      if (Flow(*lc, "gain_per_m", lpath, Need::kRequired, &gain, &gain_volume) == Got::kOk) {
+        if (tank_out_fixed_ && gain_volume != d.flow_is_volume)
+          Add(lpath + "/gain_per_m", std::string("must be a ") + (d.flow_is_volume ? "volume" : "mass") +
+                                         " flow like the outflow");
+        d.flow_is_volume = gain_volume;
+        d.tank_level_gain_per_m = gain;
+      }
     }
     std::string mode = "mixed";
     Choice(*dn, "contents_temperature", path, Need::kOptional, {"mixed", "arriving"}, &mode);
