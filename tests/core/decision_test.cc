@@ -669,7 +669,7 @@ TEST(LearningLag, AnExcursionIsLearntWhenItEndsAndAnAlarmsOnlyIfFalse) {
 // After a day of normal operation (inventory rate noise 1 kg/s), a pump start
 // shows as five blocks of 40 kg/s inventory rate, during which the residual
 // is off by 4 sigma (the inventory term's error). With the transient seen,
-// sensitivity is reduced (sigma x kTransientInflation) from the first burst
+// sensitivity is reduced (statistics held) from the first burst
 // block until kTransientHold_s after the last, nothing is learnt meanwhile,
 // and no leak alarm follows. The same residual without the inventory burst
 // (so no transient is recognised) raises a leak alarm: the reduction is what

@@ -26,9 +26,11 @@
 // its statistic was zero; the leak rate is the mean of (r - bias) since then.
 //
 // Operating transients (pump starts, valve moves) show as a large block
-// inventory rate: for kTransientHold_s after one, sigma is inflated by
-// kTransientInflation and learning stops ("reduced sensitivity"), instead of
-// going blind.
+// inventory rate (or, seen by the monitor, as a step in inlet flow or end
+// pressure): for kTransientHold_s after one the detector statistics are held
+// and learning stops ("reduced sensitivity"). A leak that starts in a
+// transient is found when the hold ends; a rupture by the monitor's fast
+// path.
 #pragma once
 
 #include <algorithm>
@@ -43,7 +45,6 @@ namespace holdfast {
 
 constexpr int kMaxDetectors = 8;
 constexpr double kTransientHold_s = 900.0;      // reduced sensitivity after a transient
-constexpr double kTransientInflation = 3.0;     // sigma multiplier while reduced
 constexpr double kTransientSigmas = 5.0;        // |inventory rate| beyond this many sd = transient
 constexpr int kMaxHeldBlocks = 2048;            // most blocks the learning may lag the detectors
                                                 // (then the oldest is learnt; while frozen, no more are held)

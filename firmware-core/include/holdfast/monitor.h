@@ -56,6 +56,19 @@ std::string SegmentFlagNames(uint32_t flags);
 struct RuptureOptions {
   double window_s = 60.0;           // look-back
   double leak_fraction = 0.10;      // imbalance over the look-back, fraction of nominal flow
+  // The metered shortfall (inflow - outflow, no line pack) must also have
+  // grown over the look-back by this share of the imbalance threshold: a
+  // rupture starves the outlet meter and draws on the inlet, while opening
+  // a valve at the outlet (a restart) makes the outlet meter read more, and
+  // the line-pack estimate can then show a large transient "imbalance".
+  double metered_share = 0.5;
+  // No rupture from a look-back that starts within this long after an
+  // operating change seen at the line ends (a step of inlet flow or end
+  // pressure, block to block): a restart after a shut-in (pump start, then
+  // the outlet valve opening) meets every other condition, the line-pack
+  // estimate lagging the pressure waves. A change the rupture itself causes
+  // is seen after the look-back that finds it has started.
+  double inhibit_after_change_s = 300.0;
   double pressure_drop_pa = 1.0e5;  // drop at both end transmitters over the look-back
   bool IsValid(std::string* why) const;
 };
@@ -230,7 +243,10 @@ class Monitor {
     std::vector<double> leak_lateral;
     GradientLocateInput locate_input;   // reused: laterals reserved at Init
     // Rupture look-back ring.
-    std::vector<double> rup_t, rup_imb, rup_p0, rup_p1;
+    std::vector<double> rup_t, rup_imb, rup_net, rup_p0, rup_p1;
+    double cum_net_kg = 0.0;  // metered in - out, integrated (rupture confirmation)
+    double last_change_s = -1e300;          // last operating change seen at the line ends
+    double change_episode_start_s = -1e300; // first change of the episode it belongs to
     int rup_head = 0, rup_count = 0;
     double cum_imbalance_kg = 0.0;
   };

@@ -271,12 +271,11 @@ void SegmentDecision::EndBlock(double t) {
   has_prev_e_ = true;
   if (warm || !(sigma > 0.0)) return;
 
-  const double widen = reduced ? kTransientInflation : 1.0;
   const double sigma_lr = sigma * std::sqrt((1.0 + phi) / (1.0 - phi));  // long-run sigma of the blocks
-  const double sigma_eff = sigma_lr * widen;
+  const double sigma_eff = sigma_lr;
   // The first block after a start or a gap has no predecessor: its marginal
   // distribution is N(0, sigma^2).
-  const double z = has_prev ? (e - phi * prev_e) / (sigma * std::sqrt(1.0 - phi * phi) * widen) : e / (sigma * widen);
+  const double z = has_prev ? (e - phi * prev_e) / (sigma * std::sqrt(1.0 - phi * phi)) : e / sigma;
   ++block_index_;
   // Detectors start as the bias becomes known well enough for them (see
   // kStartBiasErrorFraction): the small-k ones are the sensitive ones. With
@@ -290,6 +289,19 @@ void SegmentDecision::EndBlock(double t) {
   bool any_leak = false, any_suspect = false;
   for (int i = 0; i < result_.detector_count; ++i) {
     DetectorStatus& d = result_.detectors[i];
+    // While an operating transient holds sensitivity down, the statistics
+    // (and their k and h) are held where they were: the line-pack estimate
+    // is least trustworthy then. Widening sigma threefold instead, as this
+    // did first, let a restart after a shut-in carry even the one-block
+    // detectors over their thresholds (`holdfast evaluate`, weekly
+    // shut-ins). Large sudden leaks are the rupture path's.
+    if (reduced) {
+      const double held = d.h > 0.0 ? d.statistic / d.h : (d.statistic > 0.0 ? INFINITY : 0.0);
+      if (held > best) { best = held; leading = i; }
+      if (d.statistic > d.h) any_leak = true;
+      else if (d.statistic > options_.freeze_ratio * d.h) any_suspect = true;
+      continue;
+    }
     d.k = 0.5 * d.target_kg_s / sigma_eff;
     d.h = table_->Lookup(d.k);
     if (!(deciding_ & (1u << i))) {

@@ -65,6 +65,8 @@ bool RuptureOptions::IsValid(std::string* why) const {
   if (!(window_s > 0.0)) return fail("rupture: window_s must be positive");
   if (!(leak_fraction > 0.0)) return fail("rupture: leak_fraction must be positive");
   if (!(pressure_drop_pa > 0.0)) return fail("rupture: pressure_drop_pa must be positive");
+  if (!(metered_share >= 0.0 && metered_share <= 1.0)) return fail("rupture: metered_share must be in [0, 1]");
+  if (!(inhibit_after_change_s >= 0.0)) return fail("rupture: inhibit_after_change_s must be zero or positive");
   return true;
 }
 
@@ -232,6 +234,7 @@ bool Monitor::InitSegments(std::string* why) {
     const int ring = std::max(2, static_cast<int>(std::ceil(options_.rupture.window_s / site.tick_s)) + 1);
     s.rup_t.assign(ring, 0.0);
     s.rup_imb.assign(ring, 0.0);
+    s.rup_net.assign(ring, 0.0);
     s.rup_p0.assign(ring, 0.0);
     s.rup_p1.assign(ring, 0.0);
   }
@@ -401,8 +404,12 @@ void Monitor::EndBlock(SegmentRuntime& s, double t) {
   if (s.have_prev_block) {
     const double dq = std::fabs(q_in - s.prev_block_q_in);
     const double dp = std::max(std::fabs(p0 - s.prev_block_p0), std::fabs(p1 - s.prev_block_p1));
-    if (dq > options_.transient_flow_fraction * s.spec->nominal_flow_kg_s || dp > options_.transient_pressure_pa)
+    if (dq > options_.transient_flow_fraction * s.spec->nominal_flow_kg_s || dp > options_.transient_pressure_pa) {
       s.decision.MarkTransient(t);
+      // Changes closer together than the rupture inhibit are one episode.
+      if (t - s.last_change_s >= options_.rupture.inhibit_after_change_s) s.change_episode_start_s = t;
+      s.last_change_s = t;
+    }
   }
   s.have_prev_block = true;
   s.prev_block_q_in = q_in;
@@ -560,21 +567,41 @@ void Monitor::UpdateRupture(SegmentRuntime& s, double t, bool valid) {
     s.rup_count = 0;
     return;
   }
-  s.cum_imbalance_kg += s.balance.residual_kg_s() * (t - (s.rup_count ? s.rup_t[(s.rup_head + s.rup_t.size() - 1) % s.rup_t.size()] : t));
+  // Time since the previous tick in the ring (the slot before head is the
+  // last one written only once the ring is full: reading it earlier, as
+  // this did, took a stale time after every gap and integrated the first
+  // residual over the whole gap).
+  const double since = s.rup_count ? t - s.rup_t[(s.rup_head + s.rup_count - 1) % s.rup_t.size()] : 0.0;
+  s.cum_imbalance_kg += s.balance.residual_kg_s() * since;
+  s.cum_net_kg += (out.inflow_kg_s - out.outflow_kg_s) * since;
   const int size = static_cast<int>(s.rup_t.size());
   const int slot = (s.rup_head + s.rup_count) % size;
   if (s.rup_count == size) s.rup_head = (s.rup_head + 1) % size; else ++s.rup_count;
   s.rup_t[slot] = t;
   s.rup_imb[slot] = s.cum_imbalance_kg;
+  s.rup_net[slot] = s.cum_net_kg;
   s.rup_p0[slot] = aligner_.value(s.spec->pressure_gauges[s.p_first].point);
   s.rup_p1[slot] = aligner_.value(s.spec->pressure_gauges[s.p_last].point);
   const int old = s.rup_head;
   const double span = t - s.rup_t[old];
   if (span < 0.5 * options_.rupture.window_s) return;
   const double rate = (s.cum_imbalance_kg - s.rup_imb[old]) / span;
+  // Growth of the metered shortfall: its mean over the look-back against its
+  // value at the start of it.
+  const double net_then = s.rup_count >= 2 ? (s.rup_net[(old + 1) % size] - s.rup_net[old]) /
+                                                 std::max(1e-9, s.rup_t[(old + 1) % size] - s.rup_t[old])
+                                           : 0.0;
+  const double net_mean = (s.cum_net_kg - s.rup_net[old]) / span;
   const double drop0 = s.rup_p0[old] - s.rup_p0[slot];
   const double drop1 = s.rup_p1[old] - s.rup_p1[slot];
-  out.rupture = rate > options_.rupture.leak_fraction * s.spec->nominal_flow_kg_s &&
+  const double threshold = options_.rupture.leak_fraction * s.spec->nominal_flow_kg_s;
+  const double window_start = s.rup_t[old];
+  // Inhibited while an episode of operating changes that began before this
+  // look-back is still going on (its last change recent): a change the
+  // rupture itself causes starts an episode inside the look-back.
+  const bool inhibited = s.change_episode_start_s <= window_start &&
+                         window_start - s.last_change_s < options_.rupture.inhibit_after_change_s;
+  out.rupture = !inhibited && rate > threshold && net_mean - net_then >= options_.rupture.metered_share * threshold &&
                 drop0 > options_.rupture.pressure_drop_pa && drop1 > options_.rupture.pressure_drop_pa;
   if (out.rupture && !alarms_[static_cast<size_t>(&s - segments_.data()) * kAlarmTypeCount +
                               static_cast<size_t>(AlarmType::kRupture)].condition_active()) {
