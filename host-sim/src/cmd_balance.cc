@@ -11,12 +11,13 @@
 #include "readings_csv.h"
 #include "replay_driver.h"
 #include "site_file.h"
+#include "tuning_file.h"
 
 namespace holdfast::cli {
 namespace {
 
 struct BalanceArgs {
-  std::string config, data, out = "-", format = "csv", segment, events;
+  std::string config, data, out = "-", format = "csv", segment, events, tuning;
   int every = 1;
 };
 
@@ -111,6 +112,13 @@ int RunBalance(const BalanceArgs& a) {
     std::fprintf(stderr, "%s: %s\n", a.config.c_str(), why.c_str());
     return 2;
   }
+  if (!a.tuning.empty()) {
+    TuningFile tuning;
+    if (!LoadTuningFile(a.tuning, site, &tuning, &why) || !ApplyTuning(tuning, &monitor, &why)) {
+      std::fprintf(stderr, "%s\n", why.c_str());
+      return 2;
+    }
+  }
   ReadingsCsvReader reader;
   if (!reader.Open(a.data, site, &why)) {
     std::fprintf(stderr, "%s\n", why.c_str());
@@ -178,6 +186,7 @@ void Register(CLI::App& app, int* exit_code) {
   cmd->add_option("--every", args->every, "Write every Nth tick")->check(CLI::PositiveNumber);
   cmd->add_option("--segment", args->segment, "Only this segment id");
   cmd->add_option("--events", args->events, "Write alarm events as JSON Lines to this file (- for stdout)");
+  cmd->add_option("--tuning", args->tuning, "Tuning file from 'holdfast tune' to seed the decision stage");
   cmd->callback([args, exit_code] { *exit_code = RunBalance(*args); });
 }
 

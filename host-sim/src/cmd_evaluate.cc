@@ -1,0 +1,136 @@
+// `holdfast evaluate`: detection performance on simulated data (sim/evaluate.h;
+// config/EVALUATE.md). Writes DIR/summary.md, summary.csv, runs.csv,
+// evaluation.json, and DIR/report.html through tools/evaluate-report.py
+// (matplotlib).
+#include <cstdio>
+#include <cstdlib>
+#include <filesystem>
+#include <memory>
+#include <string>
+#include <unistd.h>
+#include <vector>
+
+#include "atomic_file.h"
+#include "cli_commands.h"
+#include "evaluate.h"
+#include "site_file.h"
+
+#ifndef HOLDFAST_REPORT_SCRIPT
+#define HOLDFAST_REPORT_SCRIPT "tools/evaluate-report.py"
+#endif
+
+namespace holdfast::cli {
+namespace {
+
+struct EvaluateArgs {
+  std::string config, batch, out, report_script = HOLDFAST_REPORT_SCRIPT;
+  int jobs = 0;
+  bool no_report = false, quiet = false;
+};
+
+std::string ShellQuote(const std::string& s) {
+  std::string q = "'";
+  for (char c : s) q += c == '\'' ? std::string("'\\''") : std::string(1, c);
+  return q + "'";
+}
+
+int RunEvaluate(const EvaluateArgs& a) {
+  Site site;
+  std::vector<ConfigProblem> problems;
+  if (!LoadSiteFile(a.config, &site, &problems)) {
+    for (const auto& p : problems) std::fprintf(stderr, "%s\n", p.ToString().c_str());
+    std::fprintf(stderr, "%zu problem(s) in %s; run 'holdfast check-config %s'\n", problems.size(), a.config.c_str(),
+                 a.config.c_str());
+    return 2;
+  }
+  sim::BatchSpec batch;
+  if (!sim::LoadBatchFile(a.batch, site, &batch, &problems)) {
+    for (const auto& p : problems) std::fprintf(stderr, "%s\n", p.ToString().c_str());
+    std::fprintf(stderr, "%s: %zu problem%s (format: config/EVALUATE.md)\n", a.batch.c_str(), problems.size(),
+                 problems.size() == 1 ? "" : "s");
+    return 2;
+  }
+  std::error_code ec;
+  std::filesystem::create_directories(a.out, ec);
+  if (ec) {
+    std::fprintf(stderr, "--out %s: %s\n", a.out.c_str(), ec.message().c_str());
+    return 1;
+  }
+  const size_t grid = batch.leak_fractions.size() * batch.chainages_m.size() * batch.onsets_s.size() *
+                      batch.seeds.size();
+  if (!a.quiet)
+    std::fprintf(stderr, "%s: segment %s; tuning %g days, leak-free %g days, %zu leak runs\n", a.batch.c_str(),
+                 site.segments[static_cast<size_t>(batch.segment)].id.c_str(), batch.tuning_days,
+                 batch.leak_free_days, grid);
+  sim::EvaluateOptions options;
+  options.jobs = a.jobs;
+  const bool tty = ::isatty(2) != 0;
+  options.on_run = [&](int done, int total, const sim::RunOutcome& o) {
+    if (a.quiet) return;
+    if (!o.error.empty()) {
+      std::fprintf(stderr, "%s%s run %d: %s\n", tty ? "\r\033[K" : "", sim::RunKindName(o.kind), o.index,
+                   o.error.c_str());
+      return;
+    }
+    if (o.kind != sim::RunKind::kLeak) {
+      std::fprintf(stderr, "%s%s run: %.1f days, %llu readings, %d false alarm(s), %.1f s\n", tty ? "\r\033[K" : "",
+                   sim::RunKindName(o.kind), o.duration_s / 86400.0, static_cast<unsigned long long>(o.readings),
+                   o.false_alarms, o.wall_s);
+    } else if (tty) {
+      std::fprintf(stderr, "\r\033[K[%d/%d] leak runs", done, total);
+    }
+    if (tty && done == total) std::fprintf(stderr, "\n");
+  };
+  sim::EvaluationResult result;
+  std::string why;
+  if (!sim::RunEvaluation(site, batch, options, &result, &why)) {
+    std::fprintf(stderr, "%s: %s\n", a.batch.c_str(), why.c_str());
+    return 2;
+  }
+  const std::string dir = a.out + (a.out.empty() || a.out.back() == '/' ? "" : "/");
+  const std::string md = result.SummaryMarkdown();
+  struct Out {
+    std::string name, text;
+  };
+  const Out outs[] = {{"summary.md", md},
+                      {"summary.csv", result.SummaryCsv()},
+                      {"runs.csv", result.RunsCsv()},
+                      {"evaluation.json", result.ToJson().dump(1) + "\n"}};
+  for (const Out& o : outs) {
+    if (!WriteFileAtomic(dir + o.name, o.text, &why)) {
+      std::fprintf(stderr, "%s\n", why.c_str());
+      return 1;
+    }
+  }
+  std::printf("%s", md.c_str());
+  std::printf("\nwrote %ssummary.md, summary.csv, runs.csv, evaluation.json\n", dir.c_str());
+  if (a.no_report) return 0;
+  const char* python = ::access("/usr/bin/python3", X_OK) == 0 ? "/usr/bin/python3" : "python3";
+  const std::string cmd = std::string(python) + " " + ShellQuote(a.report_script) + " " + ShellQuote(a.out);
+  const int rc = std::system(cmd.c_str());
+  if (rc != 0) {
+    std::fprintf(stderr, "report: '%s' failed (status %d); the tables above are complete. "
+                 "The report needs python3-matplotlib.\n", cmd.c_str(), rc);
+    return 1;
+  }
+  std::printf("report: %sreport.html\n", dir.c_str());
+  return 0;
+}
+
+void Register(CLI::App& app, int* exit_code) {
+  auto args = std::make_shared<EvaluateArgs>();
+  CLI::App* cmd = app.add_subcommand(
+      "evaluate", "Detection performance on simulated runs: leak grid, leak-free month, baseline and bound");
+  cmd->add_option("--config", args->config, "Site config (JSON)")->required()->check(CLI::ExistingFile);
+  cmd->add_option("--batch", args->batch, "Batch file (JSON, \"holdfast-batch/1\")")->required();
+  cmd->add_option("--out", args->out, "Output directory (created if needed)")->required();
+  cmd->add_option("--jobs", args->jobs, "Worker threads (default: one per core)")->check(CLI::Range(0, 256));
+  cmd->add_flag("--no-report", args->no_report, "Tables only: skip the HTML report (no matplotlib needed)");
+  cmd->add_option("--report-script", args->report_script, "The report script (default: the source tree's)");
+  cmd->add_flag("--quiet", args->quiet, "No progress on standard error");
+  cmd->callback([args, exit_code] { *exit_code = RunEvaluate(*args); });
+}
+
+}  // namespace
+HOLDFAST_REGISTER_COMMAND(Register);
+}  // namespace holdfast::cli
