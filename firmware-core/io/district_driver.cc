@@ -10,6 +10,8 @@
 
 namespace holdfast {
 
+constexpr double kDistrictFlatline_s = 3.0 * 86400.0;
+
 water::NightFlowOptions NightOptionsFor(const DistrictSpec& d, double tick_s) {
   water::NightFlowOptions o;
   o.utc_offset_s = d.utc_offset_s;
@@ -30,7 +32,8 @@ water::DistrictMonitorOptions MonitorOptionsFor(const DistrictSpec& d) {
   water::DistrictMonitorOptions o;
   o.false_alarm_interval_s = d.false_alarm_interval_s;
   o.profile_learning_days = d.profile_learning_days;
-  o.alarm.latching = true;
+  o.alarm.latching = false;
+  o.utc_offset_s = d.utc_offset_s;
   o.alarm.priority = AlarmPriority::kHigh;
   return o;
 }
@@ -59,7 +62,12 @@ bool DistrictRunner::Init(const Site& site, int district, double tick_s, std::st
   spec_ = &site.districts[district];
   district_ = district;
   tick_s_ = tick_s;
-  aligner_.Reset(site);
+  // Flows of a district may sit at exactly zero for hours (a reservoir inlet
+  // valve closed overnight): the flatline check only catches transmitters
+  // frozen for days.
+  DataQualityOptions dq;
+  dq.flatline_s = kDistrictFlatline_s;
+  aligner_.Reset(site, dq);
   events_.Clear();
   water::DistrictProperties props{spec_->households, spec_->non_households, spec_->population};
   if (!night_.Init(NightOptionsFor(*spec_, tick_s), props, why)) return false;

@@ -50,6 +50,9 @@ bool DistrictMonitorOptions::IsValid(std::string* why) const {
   for (double s : target_sigmas)
     if (!(s > 0.0 && s < 100.0)) return fail("target burst sizes must be in (0, 100) sigmas");
   if (!(false_alarm_interval_s >= 86400.0)) return fail("false-alarm interval must be at least a day");
+  if (!(std::fabs(utc_offset_s) <= 14.0 * 3600.0)) return fail("utc offset must be within +-14 h");
+  if (!(quiet_start_h >= 0.0 && quiet_end_h <= 24.0 && quiet_end_h > quiet_start_h))
+    return fail("quiet hours must satisfy 0 <= start < end <= 24");
   if (!(min_valid_fraction > 0.0 && min_valid_fraction <= 1.0)) return fail("min valid fraction must be in (0, 1]");
   return alarm.IsValid(why);
 }
@@ -93,6 +96,10 @@ bool DistrictMonitor::Init(int district, const DistrictMonitorOptions& options, 
   first_day_ = INT64_MIN;
   recent_.assign(kRecentBlocks, Block{});
   recent_head_ = recent_n_ = 0;
+  burst_pending_ = false;
+  was_quiet_ = false;
+  last_burst_ = BurstEvidence{};
+  bursts_ = 0;
   return true;
 }
 
@@ -121,9 +128,13 @@ void DistrictMonitor::Step(double t, double dt, bool valid, double inflow_m3_s, 
   }
   prev_f_zone_ = f_zone_;
   prev_f_cust_ = f_cust_;
-  const double a = dt > 0.0 ? 1.0 - std::exp(-dt / o_.filter_s) : 0.0;
-  f_zone_ += a * (cum_zone_m3_ - f_zone_);
-  f_cust_ += a * (cum_cust_m3_ - f_cust_);
+  // The filter stands still through a gap, so that it resumes with the lag
+  // it had (letting it settle on the frozen sums would read as low flow).
+  if (valid) {
+    const double a = 1.0 - std::exp(-dt / o_.filter_s);
+    f_zone_ += a * (cum_zone_m3_ - f_zone_);
+    f_cust_ += a * (cum_cust_m3_ - f_cust_);
+  }
 
   const int bin = static_cast<int>(std::fmod(std::floor(t / o_.block_s), static_cast<double>(bins_)));
   tick_.time_s = t;
@@ -154,13 +165,19 @@ void DistrictMonitor::Step(double t, double dt, bool valid, double inflow_m3_s, 
     if (valid) block_valid_dt_ += dt;
   }
 
+  // The alarm's condition is one tick long per detected burst: the alarm
+  // (non-latching by default here) raises at once, and returns to normal
+  // after its hold unless the next burst comes first.
+  const BurstEvidence& src = burst_pending_ ? last_burst_ : evidence_;
   AlarmEvidence ev;
-  ev.leak_rate_kg_s = evidence_.burst_m3_s * kWaterDensity_kg_m3;
-  ev.statistic = evidence_.statistic;
-  ev.threshold = evidence_.threshold;
-  ev.window_s = t - evidence_.change_point_s;
+  ev.leak_rate_kg_s = src.burst_m3_s * kWaterDensity_kg_m3;
+  ev.statistic = src.statistic;
+  ev.threshold = src.threshold;
+  ev.window_s = t - src.change_point_s;
   ev.SetDetail("burst");
-  alarm_.Update(t, evidence_.state == DecisionState::kLeak, ev);
+  alarm_.Update(t, burst_pending_, ev);
+  if (burst_pending_) ++bursts_;
+  burst_pending_ = false;
 }
 
 void DistrictMonitor::EndBlock(double t) {
@@ -218,6 +235,17 @@ void DistrictMonitor::EndBlock(double t) {
   const double dev = r - mean_[bin];
   const double sd = std::sqrt(var_[bin]);
   const double z = dev / sd;
+  const double local_h = std::fmod(block_start_s_ + o_.utc_offset_s + 10.0 * kSecondsPerDay, kSecondsPerDay) / kSecondsPerHour;
+  const bool quiet = local_h >= o_.quiet_start_h - 1e-9 && local_h < o_.quiet_end_h - 1e-9;
+  if (!quiet) {
+    // Outside the quiet hours the detectors wait; the first block after the
+    // night breaks the prewhitening chain (a gap for the bank).
+    if (was_quiet_) decision_.Step(t, o_.block_s, false, 0.0, 0.0);
+    was_quiet_ = false;
+    if (ok && decision_.result().state != DecisionState::kSuspect) UpdateProfile(bin, dev, sd);
+    return;
+  }
+  was_quiet_ = true;
   decision_.Step(t, o_.block_s, ok, z * o_.block_s, 0.0);
   const DecisionResult& res = decision_.result();
   if (ok) {
@@ -241,15 +269,28 @@ void DistrictMonitor::EndBlock(double t) {
     ++n;
   }
   evidence_.burst_m3_s = n > 0 ? sum / n : 0.0;
-  // The profile keeps learning slowly while nothing is suspected (clipped at
-  // three spreads, so one odd day does not move it much).
-  if (ok && res.state == DecisionState::kWatching) {
-    const double w = 1.0 / o_.profile_time_constant_days;
-    const double d = std::clamp(dev, -3.0 * sd, 3.0 * sd);
-    mean_[bin] += w * d;
-    const double floor_sd = std::max(0.01 * std::fabs(mean_[bin]), 1e-5);
-    var_[bin] = std::max((1.0 - w) * (var_[bin] + w * d * d), floor_sd * floor_sd);
+  if (res.state == DecisionState::kLeak) {
+    // A new burst: report it (the alarm sees the condition at the next
+    // Update), then take the step into the profile as the district's new
+    // normal and restart the detectors, so that the next burst is a new step.
+    burst_pending_ = true;
+    last_burst_ = evidence_;
+    for (int b = 0; b < bins_; ++b) mean_[b] += evidence_.burst_m3_s;
+    decision_.ResetDetectors(-1, false);
+    evidence_.state = decision_.result().state;
+    return;
   }
+  if (ok && res.state == DecisionState::kWatching) UpdateProfile(bin, dev, sd);
+}
+
+// The profile keeps learning slowly while nothing is suspected (clipped at
+// three spreads, so one odd day does not move it much).
+void DistrictMonitor::UpdateProfile(int bin, double dev, double sd) {
+  const double w = 1.0 / o_.profile_time_constant_days;
+  const double d = std::clamp(dev, -3.0 * sd, 3.0 * sd);
+  mean_[bin] += w * d;
+  const double floor_sd = std::max(0.01 * std::fabs(mean_[bin]), 1e-5);
+  var_[bin] = std::max((1.0 - w) * (var_[bin] + w * d * d), floor_sd * floor_sd);
 }
 
 }  // namespace holdfast::water
