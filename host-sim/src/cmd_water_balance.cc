@@ -172,6 +172,7 @@ int Run(const Args& a) {
   }
   const std::string md = Markdown(name, b);
   std::fputs(md.c_str(), stdout);
+  std::fflush(stdout);
   if (!a.out.empty()) {
     std::error_code ec;
     std::filesystem::create_directories(a.out, ec);
