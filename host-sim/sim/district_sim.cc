@@ -289,7 +289,8 @@ bool SimulateDistrict(const Site& site, const DistrictScenario& sc, DistrictSimR
       if (cur_day != INT64_MIN && full_day) close_day(cur_day);
       n_leak = n_use = n_head = d_leak = 0.0;
       n_count = 0;
-      full_day = std::fabs(std::fmod(local, 86400.0)) < dt * 0.5;  // the day starts with the run
+      // Every day is whole but the first, which is whole when the run starts at local midnight.
+      full_day = cur_day != INT64_MIN || std::fabs(std::fmod(local, 86400.0)) < dt * 0.5;
       cur_day = day;
       day_level = 1.0 + sc.day_to_day_pct / 100.0 * rng.Normal();
     }

@@ -22,8 +22,9 @@ namespace holdfast::cli {
 namespace {
 
 struct Args {
-  std::string config, data, district, nights_out, events_out, truth, summary;
+  std::string config, data, district, nights_out, events_out, truth, summary, balance_out;
   double tick_s = 60.0;
+  int every = 15;
 };
 
 struct Truth {
@@ -120,9 +121,31 @@ int Run(const Args& a) {
     const std::string line = DistrictEventJson(site, e);
     if (events) std::fprintf(events, "%s\n", line.c_str());
   };
+  std::FILE* balance = nullptr;
+  if (!a.balance_out.empty()) {
+    if ((balance = std::fopen(a.balance_out.c_str(), "wb")) == nullptr) {
+      if (events) std::fclose(events);
+      std::fprintf(stderr, "--balance: cannot write %s\n", a.balance_out.c_str());
+      return 1;
+    }
+    std::fprintf(balance, "time,valid,inflow_m3_h,outflow_m3_h,storage_m3,zone_flow_m3_h,customer_use_m3_h,"
+                          "residual_m3_h,pressure_head_m,decision,statistic,threshold\n");
+  }
+  uint64_t n_tick = 0;
+  o.on_tick = [&](double t) {
+    if (balance == nullptr || (n_tick++ % static_cast<uint64_t>(a.every)) != 0) return;
+    const water::DistrictTick& k = runner.monitor().tick();
+    const water::BurstEvidence& ev = runner.monitor().evidence();
+    std::fprintf(balance, "%s,%d,%.4f,%.4f,%.3f,%.4f,%s,%s,%.3f,%s,%.4f,%.4f\n", FormatIsoUtc(t, 0).c_str(),
+                 k.valid ? 1 : 0, k.inflow_m3_s * 3600.0, k.outflow_m3_s * 3600.0, k.storage_m3,
+                 k.zone_flow_m3_s * 3600.0, Fixed(k.customer_use_m3_s * 3600.0, 4).c_str(),
+                 Fixed(k.residual_m3_s * 3600.0, 4).c_str(), runner.pressure_head_m(), DecisionStateName(ev.state),
+                 ev.statistic, ev.threshold);
+  };
   CsvReadingSource source(&reader);
   const DistrictRunResult res = RunDistrict(&runner, &source, o);
   if (events) std::fclose(events);
+  if (balance) std::fclose(balance);
 
   const DistrictSpec& d = site.districts[index];
   std::printf("district %s \"%s\": %llu readings, %llu ticks (%s .. %s), %llu without a balance\n", d.id.c_str(),
@@ -252,6 +275,8 @@ void Register(CLI::App& app, int* exit_code) {
   cmd->add_option("--tick", args->tick_s, "Tick, s (default 60)")->check(CLI::Range(1.0, 900.0));
   cmd->add_option("--nights", args->nights_out, "Write the nights table as CSV");
   cmd->add_option("--events", args->events_out, "Write burst alarm events as JSON Lines");
+  cmd->add_option("--balance", args->balance_out, "Write the district balance as CSV (one row every --every ticks)");
+  cmd->add_option("--every", args->every, "Balance rows every N ticks (default 15)")->check(CLI::Range(1, 1000000));
   cmd->add_option("--truth", args->truth, "Evaluate against a district-sim truth.json");
   cmd->add_option("--summary", args->summary, "Write the evaluation summary as JSON");
   cmd->callback([args, exit_code] { *exit_code = Run(*args); });

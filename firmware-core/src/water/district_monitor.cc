@@ -110,6 +110,7 @@ void DistrictMonitor::ResetDetectors(bool false_alarm) {
 
 void DistrictMonitor::Step(double t, double dt, bool valid, double inflow_m3_s, double outflow_m3_s,
                            double storage_m3, double customer_use_m3_s) {
+  if (!std::isfinite(t) || (started_ && t < tick_.time_s)) return;  // time must not run backwards
   valid = valid && std::isfinite(inflow_m3_s) && std::isfinite(outflow_m3_s) && std::isfinite(storage_m3) &&
           (!has_customer_ || std::isfinite(customer_use_m3_s)) && dt > 0.0;
   if (!started_) {
@@ -193,6 +194,7 @@ void DistrictMonitor::EndBlock(double t) {
   if (!profile_ready_) {
     if (first_day_ == INT64_MIN) first_day_ = day;
     const int64_t age = day - first_day_;
+    if (age < 0) return;
     if (ok) learn_[static_cast<size_t>(bin) * days + static_cast<size_t>(age % days)] = r;
     // At the last bin of a day, once enough days have been seen, try to form
     // the profile: every bin needs two values.

@@ -80,6 +80,7 @@ bool NightFlowAnalyzer::Init(const NightFlowOptions& options, const DistrictProp
 }
 
 bool NightFlowAnalyzer::Step(double t, bool valid, double q_m3_s, double p_head_m) {
+  if (!std::isfinite(t) || std::fabs(t) > 1e12) return false;  // not a time: ignored
   const double local = t + o_.utc_offset_s;
   const int64_t day = static_cast<int64_t>(std::floor(local / kSecondsPerDay));
   bool closed = false;
