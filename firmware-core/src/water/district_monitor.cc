@@ -34,6 +34,11 @@ namespace {
 constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
 constexpr int kRecentBlocks = 2048;  // burst size look-back (21 days of 15-min blocks)
 constexpr double kWaterDensity_kg_m3 = 1000.0;  // nominal, only to carry m3/s in kg/s alarm evidence
+// Time-of-day bin of a block index, in [0, bins) also before 1970.
+int BinOf(double block_index, int bins) {
+  const double b = std::fmod(block_index, static_cast<double>(bins));
+  return std::clamp(static_cast<int>(b < 0.0 ? b + bins : b), 0, bins - 1);
+}
 }  // namespace
 
 bool DistrictMonitorOptions::IsValid(std::string* why) const {
@@ -110,7 +115,8 @@ void DistrictMonitor::ResetDetectors(bool false_alarm) {
 
 void DistrictMonitor::Step(double t, double dt, bool valid, double inflow_m3_s, double outflow_m3_s,
                            double storage_m3, double customer_use_m3_s) {
-  if (!std::isfinite(t) || (started_ && t < tick_.time_s)) return;  // time must not run backwards
+  // Not a time, or time running backwards: ignored.
+  if (!std::isfinite(t) || std::fabs(t) > 1e12 || (started_ && t < tick_.time_s)) return;
   valid = valid && std::isfinite(inflow_m3_s) && std::isfinite(outflow_m3_s) && std::isfinite(storage_m3) &&
           (!has_customer_ || std::isfinite(customer_use_m3_s)) && dt > 0.0;
   if (!started_) {
@@ -137,7 +143,7 @@ void DistrictMonitor::Step(double t, double dt, bool valid, double inflow_m3_s, 
     f_cust_ += a * (cum_cust_m3_ - f_cust_);
   }
 
-  const int bin = static_cast<int>(std::fmod(std::floor(t / o_.block_s), static_cast<double>(bins_)));
+  const int bin = BinOf(std::floor(t / o_.block_s), bins_);
   tick_.time_s = t;
   tick_.valid = valid;
   tick_.inflow_m3_s = inflow_m3_s;
@@ -187,7 +193,7 @@ void DistrictMonitor::EndBlock(double t) {
   const bool ok = block_dt_ > 0.0 && block_valid_dt_ >= o_.min_valid_fraction * o_.block_s && elapsed > 0.0;
   const double covered = std::max(block_dt_, 1e-9);
   const double r = ((f_zone_ - block_zone0_) - (f_cust_ - block_cust0_)) / covered;
-  const int bin = static_cast<int>(std::fmod(std::round(block_start_s_ / o_.block_s), static_cast<double>(bins_)));
+  const int bin = BinOf(std::round(block_start_s_ / o_.block_s), bins_);
   const int64_t day = static_cast<int64_t>(std::floor(block_start_s_ / kSecondsPerDay));
   const int days = o_.profile_learning_days;
 
