@@ -294,5 +294,36 @@ TEST(DistrictMonitorOptions, Validation) {
   EXPECT_FALSE(o.IsValid(&why));
 }
 
+TEST(DistrictMonitor, GarbageInputsAreInvalidTicksNeverCrashes) {
+  SequenceCounter seq;
+  AlarmEventRing<8> ring;
+  DistrictMonitor m;
+  std::string why;
+  DistrictMonitorOptions o;
+  o.alarm.latching = false;
+  ASSERT_TRUE(m.Init(0, o, false, &seq, &ring, &why)) << why;
+  const double nan = std::nan("");
+  const double t0 = 1.8e9;
+  m.Step(t0, 60, true, 0.01, 0.0, 100.0, 0.0);
+  m.Step(t0 + 60, 60, true, nan, 0.0, 100.0, 0.0);
+  EXPECT_FALSE(m.tick().valid);
+  m.Step(t0 + 120, 60, true, 0.01, INFINITY, 100.0, 0.0);
+  EXPECT_FALSE(m.tick().valid);
+  m.Step(t0 + 180, -5, true, 0.01, 0.0, 100.0, 0.0);
+  EXPECT_FALSE(m.tick().valid);
+  m.Step(nan, 60, true, 0.01, 0.0, 100.0, 0.0);   // ignored
+  m.Step(t0 - 1e6, 60, true, 0.01, 0.0, 100.0, 0.0);  // backwards: ignored
+  EXPECT_EQ(m.tick().time_s, t0 + 180);
+  m.Step(t0 + 240, 60, true, 0.01, 0.0, 100.0, 0.0);
+  EXPECT_TRUE(m.tick().valid);
+  EXPECT_EQ(ring.size(), 0u);
+  // A gap never becomes an imbalance: the storage jumps by 500 m3 across an
+  // invalid tick and the zone flow stays the metered 0.01 m3/s.
+  for (int k = 5; k < 40; ++k) m.Step(t0 + 60 * k, 60, true, 0.01, 0.0, 100.0, 0.0);
+  m.Step(t0 + 60 * 40, 60, false, 0.01, 0.0, 600.0, 0.0);
+  for (int k = 41; k < 80; ++k) m.Step(t0 + 60 * k, 60, true, 0.01, 0.0, 600.0, 0.0);
+  EXPECT_NEAR(m.tick().zone_flow_m3_s, 0.01, 1e-4);  // the filter is still settling from its start
+}
+
 }  // namespace
 }  // namespace holdfast::water
