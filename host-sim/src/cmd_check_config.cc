@@ -72,6 +72,18 @@ void PrintSegment(const Site& site, const SegmentSpec& seg) {
   std::printf("\n");
 }
 
+// Water-utility mode: one line per district (config/FORMAT.md, "districts").
+void PrintDistrict(const Site& site, const DistrictSpec& d) {
+  std::printf("  district %s", d.id.c_str());
+  if (d.name != d.id) std::printf(" \"%s\"", d.name.c_str());
+  std::printf(": %zu inlet%s, %zu outlet%s, %zu reservoir%s; pressure reference %s; %.0f households, %.0f "
+              "non-households, %.0f connections; mains %.1f km; customer use %s\n",
+              d.inlets.size(), d.inlets.size() == 1 ? "" : "s", d.outlets.size(), d.outlets.size() == 1 ? "" : "s",
+              d.reservoirs.size(), d.reservoirs.size() == 1 ? "" : "s", site.points[d.pressure_point].id.c_str(),
+              d.households, d.non_households, d.service_connections, d.mains_length_km,
+              d.customer_meter_point >= 0 ? "from aggregated smart meters" : "from the learnt demand profile");
+}
+
 int RunCheckConfig(const std::string& file) {
   Site site;
   std::vector<ConfigProblem> problems;
@@ -80,9 +92,13 @@ int RunCheckConfig(const std::string& file) {
     std::printf("%s: %zu problem%s\n", file.c_str(), problems.size(), problems.size() == 1 ? "" : "s");
     return 2;
   }
-  std::printf("%s: OK \u2014 %zu segment%s, %zu points\n", file.c_str(), site.segments.size(),
+  std::printf("%s: OK \u2014 %zu segment%s, %zu points", file.c_str(), site.segments.size(),
               site.segments.size() == 1 ? "" : "s", site.points.size());
+  if (!site.districts.empty())
+    std::printf(", %zu district%s", site.districts.size(), site.districts.size() == 1 ? "" : "s");
+  std::printf("\n");
   for (const SegmentSpec& seg : site.segments) PrintSegment(site, seg);
+  for (const DistrictSpec& d : site.districts) PrintDistrict(site, d);
   return 0;
 }
 

@@ -103,6 +103,46 @@ struct SegmentSpec {
   double length_m() const;
 };
 
+// Water-utility mode: a district metered area (DMA) as a control volume
+// (config/FORMAT.md, "districts"). Flow points carry volume-flow units.
+struct ReservoirSpec {
+  std::string id;
+  int level_point = -1;
+  std::vector<StrapPoint> strapping;  // level -> volume, strictly increasing
+};
+
+struct DistrictSpec {
+  std::string id;
+  std::string name;
+  std::vector<int> inlets;              // flow points into the district
+  std::vector<int> outlets;             // flow points to neighbouring districts
+  std::vector<ReservoirSpec> reservoirs;  // service reservoirs inside it
+  int pressure_point = -1;              // average-zone-pressure (AZP) reference point
+  double pressure_head_offset_m = 0.0;  // added to the point's head to represent the AZP
+  int customer_meter_point = -1;        // aggregated smart meters (flow), -1 = none
+  double customer_meter_coverage = 1.0; // fraction of customer use the aggregate sees, (0, 1]
+  double households = 0.0;
+  double non_households = 0.0;
+  double population = 0.0;              // 0 = not given
+  double service_connections = 0.0;
+  double mains_length_km = 0.0;
+  double private_pipe_length_km = 0.0;  // property line to customer meter
+  // Night-flow analysis (defaults: common practice, see water.h).
+  double utc_offset_s = 0.0;
+  double night_start_h = 2.0;
+  double night_end_h = 4.0;
+  double night_averaging_s = 900.0;
+  double household_night_use_l_h = 1.7;
+  double person_night_use_l_h = 0.6;
+  bool night_use_per_person = false;
+  double non_household_night_use_l_h = 8.0;
+  double exceptional_night_use_m3_h = 0.0;
+  double n1 = 1.0;
+  // Burst detection.
+  double false_alarm_interval_s = 365.0 * 86400.0;
+  int profile_learning_days = 7;
+};
+
 struct Site {
   std::string name;
   double atmospheric_pressure_pa = kStandardAtmosphere_pa;
@@ -113,6 +153,7 @@ struct Site {
   std::vector<FluidSpec> fluids;
   std::vector<std::string> fluid_ids;
   std::vector<SegmentSpec> segments;
+  std::vector<DistrictSpec> districts;  // water-utility mode; may be empty
 
   int FindPoint(const std::string& id) const;  // -1 if absent
 };

@@ -486,6 +486,9 @@ class Compiler {
   void CompilePoints(const json& doc);
   void CompilePoint(const json& p, const std::string& path, PointSpec* point, PointInfo* info);
   void CompileSegments(const json& doc);
+  void CompileDistricts(const json& doc);
+  void CompileDistrict(const json& d, const std::string& path, DistrictSpec* out);
+  void CompileFlowList(const json& d, const char* key, const std::string& path, Need need, std::vector<int>* out);
   void CompileSegment(const json& s, const std::string& path, SegmentSpec* seg);
   bool CompileSections(const json& s, const std::string& path, SegmentSpec* seg);
   void CompileProfile(const json& s, const std::string& path, bool length_known, SegmentSpec* seg);
@@ -494,6 +497,7 @@ class Compiler {
                      const std::string& path, bool length_known, SegmentSpec* seg,
                      std::vector<GaugeSpec>* out);
   void CompileTanks(const json& s, const std::string& path, SegmentSpec* seg);
+  void CompileStrapping(const json& e, const std::string& p, std::vector<StrapPoint>* out);
   void CompileLandmarks(const json& s, const std::string& path, bool length_known,
                         SegmentSpec* seg);
   void CompileTemperatureModel(const json& s, const std::string& path, SegmentSpec* seg);
@@ -513,7 +517,7 @@ void Compiler::Run(const json& doc) {
                 "\" (got " + Describe(doc) + ")");
     return;
   }
-  CheckKeys(doc, "", {"format", "site", "fluids", "points", "segments"});
+  CheckKeys(doc, "", {"format", "site", "fluids", "points", "segments", "districts"});
   std::string format;
   const json* f = Member(doc, "format");
   if (f == nullptr) {
@@ -530,6 +534,7 @@ void Compiler::Run(const json& doc) {
   CompileFluids(doc);
   CompilePoints(doc);
   CompileSegments(doc);
+  CompileDistricts(doc);
 }
 
 void Compiler::CompileSiteBlock(const json& doc) {
@@ -797,8 +802,10 @@ void Compiler::CompilePoint(const json& p, const std::string& path, PointSpec* p
 
 void Compiler::CompileSegments(const json& doc) {
   const json* segs = nullptr;
-  if (Array(doc, "segments", "", Need::kRequired, &segs) != Got::kOk) return;
-  if (segs->empty()) {
+  // A water-utility site may have districts and no pipeline segments.
+  const bool has_districts = Member(doc, "districts") != nullptr;
+  if (Array(doc, "segments", "", has_districts ? Need::kOptional : Need::kRequired, &segs) != Got::kOk) return;
+  if (segs->empty() && !has_districts) {
     Add("/segments", "must list at least one segment");
     return;
   }
@@ -1085,6 +1092,74 @@ void Compiler::CompileGauges(const json& s, const char* key, PointKind kind,
                    [](const GaugeSpec& a, const GaugeSpec& b) { return a.chainage_m < b.chainage_m; });
 }
 
+// The "strapping_table" member of `e` (at path p): level -> volume rows,
+// strictly increasing, converted to SI. Shared by tanks and reservoirs.
+void Compiler::CompileStrapping(const json& e, const std::string& p, std::vector<StrapPoint>* out) {
+  const json* table = nullptr;
+  if (Object(e, "strapping_table", p, Need::kRequired, &table) == Got::kOk) {
+    const std::string sp = p + "/strapping_table";
+    CheckKeys(*table, sp, {"level_unit", "volume_unit", "rows"});
+    UnitConversion lu;
+    UnitConversion vu;
+    std::string name;
+    bool units_ok = true;
+    if (String(*table, "level_unit", sp, Need::kRequired, &name) != Got::kOk ||
+        !Unit(name, {Quantity::kLength}, sp + "/level_unit", &lu)) {
+      units_ok = false;
+    }
+    if (String(*table, "volume_unit", sp, Need::kRequired, &name) != Got::kOk ||
+        !Unit(name, {Quantity::kVolume}, sp + "/volume_unit", &vu)) {
+      units_ok = false;
+    }
+    const json* rows = nullptr;
+    if (Array(*table, "rows", sp, Need::kRequired, &rows) == Got::kOk) {
+      const std::string rp = sp + "/rows";
+      if (rows->size() < 2) {
+        Add(rp, "a strapping table needs at least two rows [level, volume] (got " +
+                    std::to_string(rows->size()) + ")");
+      }
+      bool have_prev = false;
+      double prev_level = 0.0;
+      double prev_volume = 0.0;
+      std::size_t prev_row = 0;
+      for (std::size_t r = 0; r < rows->size(); ++r) {
+        const json& row = (*rows)[r];
+        const std::string rowp = Join(rp, r);
+        if (!row.is_array() || row.size() != 2 || !row[0].is_number() || !row[1].is_number()) {
+          Add(rowp, "a row must be [level, volume], two numbers (got " + Describe(row) + ")");
+          continue;
+        }
+        const double level = row[0].get<double>();
+        const double volume = row[1].get<double>();
+        bool ok = true;
+        if (volume < 0.0) {
+          Add(Join(rowp, std::size_t{1}), "volume must not be negative (got " + Num(volume) + ")");
+          ok = false;
+        }
+        if (have_prev && !(level > prev_level)) {
+          Add(Join(rowp, std::size_t{0}),
+              "strapping levels must be strictly increasing: " + Num(level) + " follows " +
+                  Num(prev_level) + " in row " + std::to_string(prev_row));
+          ok = false;
+        }
+        if (have_prev && !(volume > prev_volume)) {
+          Add(Join(rowp, std::size_t{1}),
+              "strapping volumes must be strictly increasing: " + Num(volume) + " follows " +
+                  Num(prev_volume) + " in row " + std::to_string(prev_row));
+          ok = false;
+        }
+        if (ok) {
+          if (units_ok) out->push_back({lu.ToSi(level), vu.ToSi(volume)});
+          have_prev = true;
+          prev_level = level;
+          prev_volume = volume;
+          prev_row = r;
+        }
+      }
+    }
+  }
+}
+
 void Compiler::CompileTanks(const json& s, const std::string& path, SegmentSpec* seg) {
   const json* tanks = nullptr;
   if (Array(s, "tanks", path, Need::kOptional, &tanks) != Got::kOk) return;
@@ -1103,69 +1178,7 @@ void Compiler::CompileTanks(const json& s, const std::string& path, SegmentSpec*
              &tank.level_point);
     PointRef(e, "temperature_point", p, Need::kOptional, PointKind::kTemperature,
              "a tank's temperature_point", &tank.temperature_point);
-    const json* table = nullptr;
-    if (Object(e, "strapping_table", p, Need::kRequired, &table) == Got::kOk) {
-      const std::string sp = p + "/strapping_table";
-      CheckKeys(*table, sp, {"level_unit", "volume_unit", "rows"});
-      UnitConversion lu;
-      UnitConversion vu;
-      std::string name;
-      bool units_ok = true;
-      if (String(*table, "level_unit", sp, Need::kRequired, &name) != Got::kOk ||
-          !Unit(name, {Quantity::kLength}, sp + "/level_unit", &lu)) {
-        units_ok = false;
-      }
-      if (String(*table, "volume_unit", sp, Need::kRequired, &name) != Got::kOk ||
-          !Unit(name, {Quantity::kVolume}, sp + "/volume_unit", &vu)) {
-        units_ok = false;
-      }
-      const json* rows = nullptr;
-      if (Array(*table, "rows", sp, Need::kRequired, &rows) == Got::kOk) {
-        const std::string rp = sp + "/rows";
-        if (rows->size() < 2) {
-          Add(rp, "a strapping table needs at least two rows [level, volume] (got " +
-                      std::to_string(rows->size()) + ")");
-        }
-        bool have_prev = false;
-        double prev_level = 0.0;
-        double prev_volume = 0.0;
-        std::size_t prev_row = 0;
-        for (std::size_t r = 0; r < rows->size(); ++r) {
-          const json& row = (*rows)[r];
-          const std::string rowp = Join(rp, r);
-          if (!row.is_array() || row.size() != 2 || !row[0].is_number() || !row[1].is_number()) {
-            Add(rowp, "a row must be [level, volume], two numbers (got " + Describe(row) + ")");
-            continue;
-          }
-          const double level = row[0].get<double>();
-          const double volume = row[1].get<double>();
-          bool ok = true;
-          if (volume < 0.0) {
-            Add(Join(rowp, std::size_t{1}), "volume must not be negative (got " + Num(volume) + ")");
-            ok = false;
-          }
-          if (have_prev && !(level > prev_level)) {
-            Add(Join(rowp, std::size_t{0}),
-                "strapping levels must be strictly increasing: " + Num(level) + " follows " +
-                    Num(prev_level) + " in row " + std::to_string(prev_row));
-            ok = false;
-          }
-          if (have_prev && !(volume > prev_volume)) {
-            Add(Join(rowp, std::size_t{1}),
-                "strapping volumes must be strictly increasing: " + Num(volume) + " follows " +
-                    Num(prev_volume) + " in row " + std::to_string(prev_row));
-            ok = false;
-          }
-          if (ok) {
-            if (units_ok) tank.strapping.push_back({lu.ToSi(level), vu.ToSi(volume)});
-            have_prev = true;
-            prev_level = level;
-            prev_volume = volume;
-            prev_row = r;
-          }
-        }
-      }
-    }
+    CompileStrapping(e, p, &tank.strapping);
     seg->tanks.push_back(std::move(tank));
   }
 }
@@ -1307,6 +1320,186 @@ void Compiler::CompileNominalFlow(const json& s, const std::string& path, Segmen
     return;
   }
   seg->nominal_flow_kg_s = v * rho;
+}
+
+
+// --- Districts (water-utility mode) -----------------------------------------
+
+void Compiler::CompileFlowList(const json& d, const char* key, const std::string& path, Need need,
+                               std::vector<int>* out) {
+  const json* list = nullptr;
+  if (Array(d, key, path, need, &list) != Got::kOk) return;
+  const std::string lp = Join(path, key);
+  if (list->empty() && need == Need::kRequired) Add(lp, "must list at least one flow point");
+  for (std::size_t i = 0; i < list->size(); ++i) {
+    const json& e = (*list)[i];
+    const std::string ep = Join(lp, i);
+    if (!e.is_string() || e.get_ref<const std::string&>().empty()) {
+      Add(ep, "must be the id of a flow point (got " + Describe(e) + ")");
+      continue;
+    }
+    json holder = json::object();
+    holder["point"] = e;
+    int index = -1;
+    const std::size_t before = problems_->size();
+    if (PointRef(holder, "point", lp, Need::kRequired, PointKind::kFlow, "a district meter", &index) == Got::kOk) {
+      if (site_->points[index].unit.quantity != Quantity::kVolumeFlow) {
+        Add(ep, "point " + Quote(e.get<std::string>()) + " has a mass-flow unit (" + site_->points[index].unit_name +
+                    "); district meters need a volume-flow unit such as m3/h or L/s");
+      } else if (std::find(out->begin(), out->end(), index) != out->end()) {
+        Add(ep, "point " + Quote(e.get<std::string>()) + " is listed twice");
+      } else {
+        out->push_back(index);
+      }
+    }
+    // PointRef reported at ".../inlets/point"; name the element instead.
+    for (std::size_t k = before; k < problems_->size(); ++k) {
+      if ((*problems_)[k].path == lp + "/point") (*problems_)[k].path = ep;
+    }
+  }
+}
+
+void Compiler::CompileDistricts(const json& doc) {
+  const json* list = nullptr;
+  if (Array(doc, "districts", "", Need::kOptional, &list) != Got::kOk) return;
+  if (list->empty()) {
+    Add("/districts", "must list at least one district (or leave \"districts\" out)");
+    return;
+  }
+  std::map<std::string, std::string> ids;
+  for (std::size_t i = 0; i < list->size(); ++i) {
+    const std::string path = Join("/districts", i);
+    const json& d = (*list)[i];
+    if (!ElementObject(d, path)) continue;
+    DistrictSpec spec;
+    CompileDistrict(d, path, &spec);
+    if (!spec.id.empty()) {
+      auto [it, fresh] = ids.emplace(spec.id, path + "/id");
+      if (!fresh) Add(path + "/id", "duplicate district id " + Quote(spec.id) + " (also " + it->second + ")");
+    }
+    site_->districts.push_back(std::move(spec));
+  }
+}
+
+void Compiler::CompileDistrict(const json& d, const std::string& path, DistrictSpec* out) {
+  CheckKeys(d, path,
+            {"id", "name", "inlets", "outlets", "reservoirs", "pressure_reference", "customer_meters", "properties",
+             "service_connections", "mains_length_km", "private_pipe_length_km", "night_flow", "burst_detection"});
+  String(d, "id", path, Need::kRequired, &out->id);
+  if (String(d, "name", path, Need::kOptional, &out->name) != Got::kOk) out->name = out->id;
+  CompileFlowList(d, "inlets", path, Need::kRequired, &out->inlets);
+  CompileFlowList(d, "outlets", path, Need::kOptional, &out->outlets);
+  for (int o : out->outlets) {
+    if (std::find(out->inlets.begin(), out->inlets.end(), o) != out->inlets.end()) {
+      Add(path + "/outlets", "point " + Quote(site_->points[o].id) + " is both an inlet and an outlet");
+    }
+  }
+  const json* res = nullptr;
+  if (Array(d, "reservoirs", path, Need::kOptional, &res) == Got::kOk) {
+    for (std::size_t i = 0; i < res->size(); ++i) {
+      const std::string p = Join(path + "/reservoirs", i);
+      const json& e = (*res)[i];
+      if (!ElementObject(e, p)) continue;
+      CheckKeys(e, p, {"id", "level_point", "strapping_table"});
+      ReservoirSpec r;
+      if (String(e, "id", p, Need::kRequired, &r.id) == Got::kOk) {
+        auto [it, fresh] = tank_ids_.emplace(r.id, p + "/id");
+        if (!fresh) Add(p + "/id", "duplicate tank or reservoir id " + Quote(r.id) + " (also " + it->second + ")");
+      }
+      PointRef(e, "level_point", p, Need::kRequired, PointKind::kLevel, "a reservoir's level_point", &r.level_point);
+      CompileStrapping(e, p, &r.strapping);
+      out->reservoirs.push_back(std::move(r));
+    }
+  }
+  const json* pr = nullptr;
+  if (Object(d, "pressure_reference", path, Need::kRequired, &pr) == Got::kOk) {
+    const std::string p = path + "/pressure_reference";
+    CheckKeys(*pr, p, {"point", "head_offset_m"});
+    PointRef(*pr, "point", p, Need::kRequired, PointKind::kPressure, "the average-zone-pressure reference",
+             &out->pressure_point);
+    Number(*pr, "head_offset_m", p, Need::kOptional, &out->pressure_head_offset_m);
+  }
+  const json* cm = nullptr;
+  if (Object(d, "customer_meters", path, Need::kOptional, &cm) == Got::kOk) {
+    const std::string p = path + "/customer_meters";
+    CheckKeys(*cm, p, {"point", "coverage"});
+    std::vector<int> one;
+    json holder = json::object();
+    if (const json* m = Member(*cm, "point")) holder["inlets"] = json::array({*m});
+    else Add(p + "/point", "missing required field \"point\" (the id of a flow point with the aggregated smart meters)");
+    if (!holder.empty()) {
+      const std::size_t before = problems_->size();
+      CompileFlowList(holder, "inlets", p, Need::kRequired, &one);
+      for (std::size_t k = before; k < problems_->size(); ++k) (*problems_)[k].path = p + "/point";
+      if (one.size() == 1) out->customer_meter_point = one[0];
+    }
+    double cov = 1.0;
+    if (Positive(*cm, "coverage", p, Need::kOptional, &cov) == Got::kOk) {
+      if (cov > 1.0) Add(p + "/coverage", "must be a fraction in (0, 1] (got " + Num(cov) + ")");
+      else out->customer_meter_coverage = cov;
+    }
+  }
+  const json* props = nullptr;
+  if (Object(d, "properties", path, Need::kRequired, &props) == Got::kOk) {
+    const std::string p = path + "/properties";
+    CheckKeys(*props, p, {"households", "non_households", "population"});
+    NonNegative(*props, "households", p, Need::kRequired, &out->households);
+    NonNegative(*props, "non_households", p, Need::kOptional, &out->non_households);
+    NonNegative(*props, "population", p, Need::kOptional, &out->population);
+  }
+  NonNegative(d, "service_connections", path, Need::kRequired, &out->service_connections);
+  Positive(d, "mains_length_km", path, Need::kRequired, &out->mains_length_km);
+  NonNegative(d, "private_pipe_length_km", path, Need::kOptional, &out->private_pipe_length_km);
+
+  const json* nf = nullptr;
+  if (Object(d, "night_flow", path, Need::kOptional, &nf) == Got::kOk) {
+    const std::string p = path + "/night_flow";
+    CheckKeys(*nf, p,
+              {"utc_offset_h", "window_start_h", "window_end_h", "averaging_s", "household_l_per_property_h",
+               "person_l_per_h", "per_person", "non_household_l_per_property_h", "exceptional_m3_h", "n1"});
+    double off_h = 0.0;
+    if (Number(*nf, "utc_offset_h", p, Need::kOptional, &off_h) == Got::kOk) {
+      if (std::fabs(off_h) > 14.0) Add(p + "/utc_offset_h", "must be within -14..14 h (got " + Num(off_h) + ")");
+      else out->utc_offset_s = off_h * 3600.0;
+    }
+    const bool gs = NonNegative(*nf, "window_start_h", p, Need::kOptional, &out->night_start_h) != Got::kBad;
+    const bool ge = Positive(*nf, "window_end_h", p, Need::kOptional, &out->night_end_h) != Got::kBad;
+    if (gs && ge && !(out->night_end_h > out->night_start_h && out->night_end_h <= 24.0)) {
+      Add(p + "/window_end_h", "the night window must end after it starts and by 24 h (got " +
+                                   Num(out->night_start_h) + " to " + Num(out->night_end_h) + ")");
+    }
+    if (Positive(*nf, "averaging_s", p, Need::kOptional, &out->night_averaging_s) == Got::kOk && gs && ge &&
+        out->night_averaging_s > (out->night_end_h - out->night_start_h) * 3600.0) {
+      Add(p + "/averaging_s", "must not be longer than the night window (got " + Num(out->night_averaging_s) + " s)");
+    }
+    NonNegative(*nf, "household_l_per_property_h", p, Need::kOptional, &out->household_night_use_l_h);
+    NonNegative(*nf, "person_l_per_h", p, Need::kOptional, &out->person_night_use_l_h);
+    NonNegative(*nf, "non_household_l_per_property_h", p, Need::kOptional, &out->non_household_night_use_l_h);
+    NonNegative(*nf, "exceptional_m3_h", p, Need::kOptional, &out->exceptional_night_use_m3_h);
+    if (const json* pp = Member(*nf, "per_person")) {
+      if (!pp->is_boolean()) Add(p + "/per_person", "must be true or false (got " + Describe(*pp) + ")");
+      else out->night_use_per_person = pp->get<bool>();
+    }
+    if (out->night_use_per_person && !(out->population > 0.0)) {
+      Add(p + "/per_person", "per-person night use needs /properties/population");
+    }
+    double n1 = 1.0;
+    if (NonNegative(*nf, "n1", p, Need::kOptional, &n1) == Got::kOk) {
+      if (n1 > 3.0) Add(p + "/n1", "FAVAD N1 must be in [0, 3] (typically 0.5 to 1.5; got " + Num(n1) + ")");
+      else out->n1 = n1;
+    }
+  }
+  const json* bd = nullptr;
+  if (Object(d, "burst_detection", path, Need::kOptional, &bd) == Got::kOk) {
+    const std::string p = path + "/burst_detection";
+    CheckKeys(*bd, p, {"false_alarm_interval_days", "profile_learning_days"});
+    double days = 365.0;
+    if (Positive(*bd, "false_alarm_interval_days", p, Need::kOptional, &days) == Got::kOk) {
+      if (days < 1.0) Add(p + "/false_alarm_interval_days", "must be at least 1 day (got " + Num(days) + ")");
+      else out->false_alarm_interval_s = days * 86400.0;
+    }
+    Integer(*bd, "profile_learning_days", p, Need::kOptional, 2, 60, &out->profile_learning_days);
+  }
 }
 
 }  // namespace

@@ -1,0 +1,90 @@
+// Water-utility mode at the file boundary: one district (DMA) of a site run
+// through the core's DistrictMonitor (burst detection) and NightFlowAnalyzer
+// (minimum night flow), on the same tick rule as replay_driver.h.
+//
+//   holdfast::DistrictRunner runner;
+//   runner.Init(site, district_index, tick_s, &why);
+//   holdfast::DistrictRunOptions o;  o.on_night = ...;  o.on_event = ...;
+//   holdfast::RunDistrict(&runner, &source, o);
+//
+// Boundary conversions happen here: volume flows are summed per role in m3/s,
+// reservoir levels become volumes through their strapping tables, and the
+// pressure reference becomes gauge head in metres of water,
+//     head_m = (p_abs - p_atm) / (1000 kg/m3 * g) + head_offset_m
+// (1000 kg/m3: the conventional density of a metre of water head).
+#pragma once
+
+#include <cstdint>
+#include <functional>
+#include <string>
+
+#include "holdfast/aligner.h"
+#include "holdfast/alarm.h"
+#include "holdfast/site.h"
+#include "holdfast/water.h"
+#include "replay_driver.h"
+
+namespace holdfast {
+
+// The district's Options built from its config entry (defaults from water.h).
+water::NightFlowOptions NightOptionsFor(const DistrictSpec& d, double tick_s);
+water::DistrictMonitorOptions MonitorOptionsFor(const DistrictSpec& d);
+
+class DistrictRunner {
+ public:
+  bool Init(const Site& site, int district, double tick_s, std::string* why);
+  void Feed(const Reading& r) { aligner_.Feed(r); }
+  // One tick at time t. Returns true when a night was completed.
+  bool Advance(double t);
+  bool Finish() { return night_.Finish(); }
+  bool PopEvent(AlarmEvent* e) { return events_.Pop(e); }
+
+  const water::DistrictMonitor& monitor() const { return monitor_; }
+  water::DistrictMonitor& monitor() { return monitor_; }
+  const water::NightFlowAnalyzer& night() const { return night_; }
+  double pressure_head_m() const { return head_m_; }
+  const DistrictSpec& spec() const { return *spec_; }
+  const Aligner& aligner() const { return aligner_; }
+  uint64_t invalid_ticks() const { return invalid_ticks_; }
+  double tick_s() const { return tick_s_; }
+
+ private:
+  const Site* site_ = nullptr;
+  const DistrictSpec* spec_ = nullptr;
+  int district_ = 0;
+  double tick_s_ = 60.0;
+  Aligner aligner_;
+  SequenceCounter seq_;
+  AlarmEventRing<64> events_;
+  water::DistrictMonitor monitor_;
+  water::NightFlowAnalyzer night_;
+  double last_t_ = 0.0;
+  bool have_last_ = false;
+  double head_m_ = 0.0;
+  uint64_t invalid_ticks_ = 0;
+};
+
+struct DistrictRunOptions {
+  std::function<void(const AlarmEvent&)> on_event;
+  std::function<void(const water::NightResult&)> on_night;
+  std::function<void(double t)> on_tick;
+};
+
+struct DistrictRunResult {
+  uint64_t readings_fed = 0, ticks = 0, events = 0, nights = 0;
+  double first_tick_s = kNaN, last_tick_s = kNaN;
+};
+
+DistrictRunResult RunDistrict(DistrictRunner* runner, ReadingSource* source, const DistrictRunOptions& options);
+
+// One alarm event of a district as a single-line JSON object (config/WATER.md):
+// time, district, type "burst", state, from, cause, priority, seq,
+// burst_m3_h (estimated burst size), change_point (ISO time), statistic,
+// threshold, user.
+std::string DistrictEventJson(const Site& site, const AlarmEvent& event);
+
+// Interpolated reservoir volume (m3) at `level_m`; levels beyond the table
+// extrapolate the end segments' slope. NaN for an empty table.
+double ReservoirVolume_m3(const ReservoirSpec& r, double level_m);
+
+}  // namespace holdfast
