@@ -241,3 +241,38 @@ TEST(Inventory, TemperatureFrontIsCarriedWithTheFlow) {
 
 }  // namespace
 }  // namespace holdfast
+
+namespace holdfast {
+namespace {
+
+// With transport, a transmitter's residual corrects the profile near it and
+// fades over kTemperatureResidualLength_m: an outlet reading 2 K below the
+// transported model (a front arriving a few minutes off) moves the reaches
+// by the outlet by about 2 K and the middle of a 30 km line by almost
+// nothing (0.5 exp(-15 km / 3 km) = 0.3 %), where the linear spreading it
+// replaced moved it by half.
+TEST(Inventory, TransmitterResidualCorrectsLocally) {
+  const FluidSpec f = GenericLiquid(860.0, 1.4e9, 8.5e-4);
+  const PipeSection s = Steel(30000.0, 0.4064, 0.0079);
+  Site site = TwoEndSite(f, {s}, 250.0);
+  site.segments[0].ground_temperature_k = 285.0;
+  site.segments[0].thermal_time_constant_s = 1e15;  // no relaxation
+  Monitor m;
+  std::string why;
+  ASSERT_TRUE(m.Init(site, &why)) << why;
+  const double q = 200.0;
+  for (int k = 0; k <= 600; ++k) {
+    FeedAll(&m, site, k, q, q, 20e5, 20e5, 290.0, k < 300 ? 290.0 : 288.0);
+    m.Advance(k);
+  }
+  const SegmentInventory& inv = m.inventory(0);
+  for (int i = 0; i < inv.reach_count(); ++i) {
+    const double x = inv.reach_chainage_m(i);
+    // Linear between the transmitters, times the fade from the outlet one.
+    const double expected = 290.0 - 2.0 * (x / 30000.0) * std::exp(-(30000.0 - x) / kTemperatureResidualLength_m);
+    EXPECT_NEAR(inv.reach_temperature_k(i), expected, 0.02) << x;
+  }
+}
+
+}  // namespace
+}  // namespace holdfast

@@ -159,13 +159,17 @@ bool SegmentInventory::Init(const Site& site, int segment, const DensityTable* t
   // Temperature interpolation weights in chainage (held beyond the end gauges).
   const int gt = static_cast<int>(seg.temperature_gauges.size());
   t_lo_.assign(n, 0); t_hi_.assign(n, 0); t_w_.assign(n, 0.0);
+  e_w_lo_.assign(n, 0.0); e_w_hi_.assign(n, 0.0);
+  auto fade = [](double d) { return std::exp(-std::fabs(d) / kTemperatureResidualLength_m); };
   for (int i = 0; i < n && gt > 0; ++i) {
     const double xi = x_[i];
     if (gt == 1 || xi <= seg.temperature_gauges.front().chainage_m) {
+      e_w_lo_[i] = fade(seg.temperature_gauges.front().chainage_m - xi);
       continue;  // lo = hi = 0
     }
     if (xi >= seg.temperature_gauges.back().chainage_m) {
       t_lo_[i] = t_hi_[i] = gt - 1;
+      e_w_lo_[i] = fade(xi - seg.temperature_gauges.back().chainage_m);
       continue;
     }
     int j = 0;
@@ -174,6 +178,8 @@ bool SegmentInventory::Init(const Site& site, int segment, const DensityTable* t
     t_lo_[i] = j;
     t_hi_[i] = j + 1;
     t_w_[i] = dxg > 0.0 ? (xi - seg.temperature_gauges[j].chainage_m) / dxg : 0.0;
+    e_w_lo_[i] = (1.0 - t_w_[i]) * fade(xi - seg.temperature_gauges[j].chainage_m);
+    e_w_hi_[i] = t_w_[i] * fade(seg.temperature_gauges[j + 1].chainage_m - xi);
   }
   // Where each temperature gauge sits on the reach grid (for model residuals).
   t_gauge_reach_lo_.assign(gt, 0);
@@ -434,7 +440,7 @@ void SegmentInventory::UpdateTemperatures(const Aligner& aligner, double t, doub
   }
   const double* e = gauge_t_resid_.data();
   for (int i = 0; i < n; ++i)
-    temp_[i] = temp_model_[i] + (1.0 - t_w_[i]) * e[t_lo_[i]] + t_w_[i] * e[t_hi_[i]];
+    temp_[i] = temp_model_[i] + e_w_lo_[i] * e[t_lo_[i]] + e_w_hi_[i] * e[t_hi_[i]];
 }
 
 const InventoryResult& SegmentInventory::Update(const Aligner& aligner, double t, double dt,
