@@ -4,9 +4,12 @@
 #pragma once
 
 #include <functional>
+#include <string>
 #include <vector>
 
 #include <CLI/CLI.hpp>
+
+#include "holdfast/site.h"
 
 namespace holdfast::cli {
 
@@ -16,6 +19,11 @@ std::vector<RegisterFn>& Registry();
 struct Registrar {
   explicit Registrar(RegisterFn fn) { Registry().push_back(std::move(fn)); }
 };
+
+// Loads a site file for a command; on failure prints every problem (file and
+// JSON pointer) and a hint to run check-config on standard error, and
+// returns false (the command then exits 2).
+bool LoadSiteOrSay(const std::string& path, Site* site);
 
 }  // namespace holdfast::cli
 

@@ -90,13 +90,7 @@ void WriteRow(std::FILE* f, const BalanceArgs& a, const std::string& seg, const 
 
 int RunBalance(const BalanceArgs& a) {
   Site site;
-  std::vector<ConfigProblem> problems;
-  if (!LoadSiteFile(a.config, &site, &problems)) {
-    for (const auto& p : problems) std::fprintf(stderr, "%s\n", p.ToString().c_str());
-    std::fprintf(stderr, "%zu problem(s) in %s; run 'holdfast check-config %s'\n", problems.size(),
-                 a.config.c_str(), a.config.c_str());
-    return 2;
-  }
+  if (!LoadSiteOrSay(a.config, &site)) return 2;
   int only = -1;
   if (!a.segment.empty()) {
     for (size_t i = 0; i < site.segments.size(); ++i)

@@ -70,13 +70,7 @@ std::string Fixed(double v, int dec) {
 
 int Run(const Args& a) {
   Site site;
-  std::vector<ConfigProblem> problems;
-  if (!LoadSiteFile(a.config, &site, &problems)) {
-    for (const auto& p : problems) std::fprintf(stderr, "%s\n", p.ToString().c_str());
-    std::fprintf(stderr, "%zu problem(s) in %s; run 'holdfast check-config %s'\n", problems.size(), a.config.c_str(),
-                 a.config.c_str());
-    return 2;
-  }
+  if (!LoadSiteOrSay(a.config, &site)) return 2;
   if (site.districts.empty()) {
     std::fprintf(stderr, "%s: the site has no districts (config/FORMAT.md, \"districts\")\n", a.config.c_str());
     return 2;

@@ -37,12 +37,7 @@ std::string ShellQuote(const std::string& s) {
 int RunEvaluate(const EvaluateArgs& a) {
   Site site;
   std::vector<ConfigProblem> problems;
-  if (!LoadSiteFile(a.config, &site, &problems)) {
-    for (const auto& p : problems) std::fprintf(stderr, "%s\n", p.ToString().c_str());
-    std::fprintf(stderr, "%zu problem(s) in %s; run 'holdfast check-config %s'\n", problems.size(), a.config.c_str(),
-                 a.config.c_str());
-    return 2;
-  }
+  if (!LoadSiteOrSay(a.config, &site)) return 2;
   sim::BatchSpec batch;
   if (!sim::LoadBatchFile(a.batch, site, &batch, &problems)) {
     for (const auto& p : problems) std::fprintf(stderr, "%s\n", p.ToString().c_str());

@@ -696,13 +696,7 @@ nlohmann::ordered_json SegmentSummary(const Monitor& monitor, int s) {
 
 int RunReplayCommand(const ReplayArgs& a) {
   Site site;
-  std::vector<ConfigProblem> problems;
-  if (!LoadSiteFile(a.config, &site, &problems)) {
-    for (const auto& p : problems) std::fprintf(stderr, "%s\n", p.ToString().c_str());
-    std::fprintf(stderr, "%zu problem(s) in %s; run 'holdfast check-config %s'\n", problems.size(),
-                 a.config.c_str(), a.config.c_str());
-    return 2;
-  }
+  if (!LoadSiteOrSay(a.config, &site)) return 2;
   ReplayOptions options;
   for (const auto& [text, value, name] : {std::make_tuple(&a.start, &options.start_s, "--start"),
                                           std::make_tuple(&a.until, &options.until_s, "--until")}) {

@@ -24,12 +24,7 @@ struct SimArgs {
 int RunSim(const SimArgs& a) {
   Site site;
   std::vector<ConfigProblem> problems;
-  if (!LoadSiteFile(a.config, &site, &problems)) {
-    for (const auto& p : problems) std::fprintf(stderr, "%s\n", p.ToString().c_str());
-    std::fprintf(stderr, "%zu problem(s) in %s; run 'holdfast check-config %s'\n", problems.size(), a.config.c_str(),
-                 a.config.c_str());
-    return 2;
-  }
+  if (!LoadSiteOrSay(a.config, &site)) return 2;
   sim::Scenario scenario;
   if (!sim::LoadScenarioFile(a.scenario, site, &scenario, &problems)) {
     for (const auto& p : problems) std::fprintf(stderr, "%s\n", p.ToString().c_str());

@@ -150,13 +150,7 @@ bool IsDirectory(const std::string& path) {
 
 int RunTune(const TuneArgs& a) {
   Site site;
-  std::vector<ConfigProblem> problems;
-  if (!LoadSiteFile(a.config, &site, &problems)) {
-    for (const auto& p : problems) std::fprintf(stderr, "%s\n", p.ToString().c_str());
-    std::fprintf(stderr, "%zu problem(s) in %s; run 'holdfast check-config %s'\n", problems.size(),
-                 a.config.c_str(), a.config.c_str());
-    return 2;
-  }
+  if (!LoadSiteOrSay(a.config, &site)) return 2;
   DecisionOptions dopt;
   dopt.block_s = a.block_s;
   dopt.false_alarm_interval_s = a.budget_days * 86400.0;
