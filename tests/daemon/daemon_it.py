@@ -4,7 +4,7 @@ Scenarios: e2e, tls, broker_restart, kill9, malformed, credentials."""
 import json, os, shutil, signal, subprocess, sys, time
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
-from harness import (PREFIX, Broker, Daemon, Failures, Watcher, batches, data_time, spawn, wait_for)
+from harness import (PASSWORDS, PREFIX, Broker, Daemon, Failures, Watcher, batches, data_time, spawn, wait_for)
 
 scenario, holdfastd, holdfast, site, readings, work = sys.argv[1:7]
 shutil.rmtree(work, ignore_errors=True)
@@ -117,14 +117,29 @@ try:
                 "mallory's command rejected: " + json.dumps(rep))
         st = broker.get_retained("watcher", PREFIX + "/alarms/KR-1")
         F.check(st["alarms"]["leak"]["state"] == "unack_active", "no unauthorised command changed the alarm")
-        # Authorised: alice acknowledges.
-        command(broker, "alice", {"id": "a-1", "segment": "KR-1", "alarm": "leak", "command": "acknowledge",
-                                  "user": "alice"})
-        wait_for(lambda: any(t == PREFIX + "/replies/alice" for t, p in watcher.messages()), TIMEOUT,
-                 "the reply to alice")
-        rep = [p for t, p in watcher.messages() if t == PREFIX + "/replies/alice"][0]
-        F.check(rep["ok"] is True and rep["result"] == "applied" and rep["id"] == "a-1" and rep["state"] == "ack_active",
-                "alice's acknowledge applied: " + json.dumps(rep))
+        # Authorised: alice acknowledges with `holdfast alarms ack`, while `holdfast alarms watch` follows.
+        cred = os.path.join(work, "alice.cred")
+        with open(cred, "w") as f:
+            f.write("alice\n%s\n" % PASSWORDS["alice"])
+        os.chmod(cred, 0o600)
+        cli = ["--broker", broker.uri(), "--prefix", PREFIX, "--credentials", cred]
+        if tls:
+            cli += ["--cafile", os.path.join(broker.dir, "ca.crt")]
+        watch_out = open(os.path.join(work, "cli-watch.txt"), "w")
+        cli_watch = spawn([holdfast, "alarms", "watch", "--count", "1", "--timeout", str(TIMEOUT)] + cli,
+                          stdout=watch_out, stderr=subprocess.STDOUT)
+        time.sleep(1.0)
+        r = subprocess.run([holdfast, "alarms", "ack", "--segment", "KR-1", "--alarm", "leak", "--reason", "seen"] + cli,
+                           capture_output=True, text=True, timeout=TIMEOUT)
+        F.check(r.returncode == 0 and "done: applied, state ack_active" in r.stdout,
+                "holdfast alarms ack: %d %s %s" % (r.returncode, r.stdout.strip(), r.stderr.strip()))
+        cli_watch.wait(timeout=TIMEOUT)
+        watched = open(os.path.join(work, "cli-watch.txt")).read()
+        F.check(cli_watch.returncode == 0 and "acknowledged" in watched and "by alice" in watched,
+                "holdfast alarms watch shows the acknowledgement: " + watched.strip())
+        r = subprocess.run([holdfast, "alarms", "shelve", "--segment", "KR-1", "--alarm", "rupture", "--for", "600"]
+                           + cli, capture_output=True, text=True, timeout=TIMEOUT)
+        F.check(r.returncode == 0 and "state shelved" in r.stdout, "holdfast alarms shelve: " + r.stdout.strip())
         wait_for(lambda: [e for e in events_of(watcher) if e["cause"] == "acknowledged"], TIMEOUT, "the ack event")
         ack = [e for e in events_of(watcher) if e["cause"] == "acknowledged"][0]
         F.check(ack["user"] == "alice" and ack["seq"] == 2, "ack event by alice with seq 2")
@@ -138,7 +153,7 @@ try:
         F.check(st and st["state"] == "offline" and st["reason"] == "shutdown", "retained status offline (shutdown)")
         F.check("pw-" not in daemon.log_text(), "no password in the daemon log")
         jr = os.path.join(daemon.dir, "journal")
-        F.check(open(os.path.join(jr, "acked")).read().strip() == "2", "journal: every event acknowledged")
+        F.check(open(os.path.join(jr, "acked")).read().strip() == "3", "journal: every event acknowledged")
 
     elif scenario == "broker_restart":
         first = os.path.join(work, "first.jsonl")
