@@ -243,19 +243,23 @@ void Engine::FlushEvents() {
     ++counters_.journal_failures;
     Log("JOURNAL WRITE FAILED, publishing without it: %s", why.c_str());
   }
-  // 2. The state that raised them, so that a restart neither repeats nor loses them.
-  if (!Checkpoint(&why)) Log("checkpoint failed: %s", why.c_str());
-  // 3. Out.
+  // 2. Out.
   for (const JournalRecord& r : records) {
     if (event_stream_) {
       std::fprintf(event_stream_, "%s\n", r.payload.c_str());
       std::fflush(event_stream_);
-      journal_.Retire(r.seq, &why);
+      journal_.MarkAcked(r.seq);
     } else {
       PublishRecord(r);
     }
   }
+  if (event_stream_ && !journal_.Commit(&why)) Log("journal retire failed: %s", why.c_str());
   PublishAlarmStates(touched);
+  // 3. The state that raised them (alarm states, sequence counter), so that a
+  // restart does not raise them again. Not needed before publishing: the
+  // journal alone guarantees delivery, and a restart from an older
+  // checkpoint numbers new events after the journal's (Init).
+  if (!Checkpoint(&why)) Log("checkpoint failed: %s", why.c_str());
 }
 
 void Engine::PublishRecord(const JournalRecord& r) {
@@ -371,8 +375,7 @@ void Engine::OnDisconnected() { connected_ = false; }
 
 void Engine::OnAcked(uint64_t seq) {
   ++counters_.events_acked;
-  std::string why;
-  if (!journal_.Retire(seq, &why)) Log("journal retire failed: %s", why.c_str());
+  journal_.MarkAcked(seq);  // made durable by the next Poll (one marker write per batch)
 }
 
 void Engine::OnPublishFailed(uint64_t seq) {
@@ -430,6 +433,8 @@ void Engine::Poll(double now_s) {
     last_checkpoint_s_ = now_s;
   }
   Step();
+  std::string why;
+  if (!journal_.Commit(&why)) Log("journal retire failed: %s", why.c_str());
   if (link_ && connected_) {
     if (now_s - last_heartbeat_s_ >= options_.heartbeat_period_s) {
       last_heartbeat_s_ = now_s;
@@ -454,7 +459,6 @@ void Engine::Poll(double now_s) {
     }
   }
   if (dirty_ && now_s - last_checkpoint_s_ >= options_.checkpoint_period_s) {
-    std::string why;
     if (!Checkpoint(&why)) Log("checkpoint failed: %s", why.c_str());
   }
 }

@@ -251,7 +251,7 @@ int RunBroker(Engine* engine, const DaemonOptions& o) {
     engine->Poll(WallNow());
   }
   std::fprintf(stderr, "holdfastd: stopping\n");
-  engine->Step();
+  engine->Poll(WallNow());
   if (!engine->Checkpoint(&why)) std::fprintf(stderr, "holdfastd: checkpoint failed: %s\n", why.c_str());
   if (state == LinkState::kConnected) {
     try {

@@ -202,23 +202,32 @@ bool Journal::Append(const std::vector<JournalRecord>& records, std::string* why
 }
 
 bool Journal::Retire(uint64_t seq, std::string* why) {
-  bool found = false;
+  MarkAcked(seq);
+  return Commit(why);
+}
+
+void Journal::MarkAcked(uint64_t seq) {
   for (Entry& e : pending_) {
     if (e.record.seq == seq) {
       e.acked = true;
-      found = true;
-      break;
+      return;
     }
   }
-  if (!found) return true;
+}
+
+bool Journal::Commit(std::string* why) {
   uint64_t through = acked_through_;
-  while (!pending_.empty() && pending_.front().acked) {
-    through = pending_.front().record.seq;
-    pending_.pop_front();
-    ++retired_in_file_;
+  std::size_t popped = 0;
+  for (const Entry& e : pending_) {
+    if (!e.acked) break;
+    through = e.record.seq;
+    ++popped;
   }
-  if (through == acked_through_) return true;
+  if (popped == 0) return true;
+  // The marker first: if it cannot be written the records stay pending.
   if (!WriteFileAtomic(marker_path_, std::to_string(through) + "\n", why)) return false;
+  for (std::size_t i = 0; i < popped; ++i) pending_.pop_front();
+  retired_in_file_ += popped;
   acked_through_ = through;
   if (retired_in_file_ >= options_.compact_after) return Compact(why);
   return true;

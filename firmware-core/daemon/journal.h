@@ -51,7 +51,12 @@ class Journal {
   bool Append(const std::vector<JournalRecord>& records, std::string* why);
 
   // The broker acknowledged `seq`. Unknown or already retired: no-op.
+  // Retire = MarkAcked + Commit. MarkAcked only notes it in memory; Commit
+  // moves the durable marker over the acknowledged prefix (one atomic write
+  // for any number of acknowledgements) and compacts when due.
   bool Retire(uint64_t seq, std::string* why);
+  void MarkAcked(uint64_t seq);
+  bool Commit(std::string* why);
 
   // Not yet acknowledged, oldest first.
   std::size_t pending_count() const { return pending_.size(); }

@@ -143,12 +143,12 @@ for k, sec in enumerate(seconds):
         time.sleep(due - now)
     if k == 10:  # measure after the start-up (site compile, first ticks)
         measure_from, cpu0 = time.time(), cpu_ticks(daemon.proc.pid)
-    handed[k] = time.time()
     lines = []
     for i in range(args.segments):
         stepped = i % 10 == 0 and k >= args.step_at
         lines.append(json.dumps([{"point": "%s-%s" % (sid(i), p), "time": t, "value": step(p, v) if stepped else v}
                                  for p, t, v in sec], separators=(",", ":")))
+    handed[k] = time.time()
     pub.stdin.write("\n".join(lines) + "\n")
     pub.stdin.flush()
     if k % 5 == 0:

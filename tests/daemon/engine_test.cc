@@ -98,6 +98,7 @@ TEST(Engine, JournalFirstPublishOnConnectRetireOnAck) {
   EXPECT_EQ(link.Events()[0].journal_seq, 1u);
   EXPECT_NE(link.Events()[0].payload.find("\"seq\":1,"), std::string::npos);
   e.OnAcked(1);
+  e.Poll(3.0);  // the marker is written once per poll
   EXPECT_EQ(e.journal().pending_count(), 0u);
   EXPECT_EQ(e.journal().acked_through(), 1u);
   std::filesystem::remove_all(dir);
