@@ -5,6 +5,7 @@
 #include <unistd.h>
 
 #include <cerrno>
+#include <chrono>
 #include <cinttypes>
 #include <cmath>
 #include <cstdarg>
@@ -39,7 +40,16 @@ void Engine::Log(const char* fmt, ...) {
   va_start(ap, fmt);
   std::vsnprintf(buf, sizeof buf, fmt, ap);
   va_end(ap);
-  std::fprintf(log_, "holdfastd: %s\n", buf);
+  // Wall-clock time with milliseconds: log lines from the monitor thread are
+  // what an outage or a latency question is reconstructed from.
+  timespec ts{};
+  clock_gettime(CLOCK_REALTIME, &ts);
+  tm utc{};
+  gmtime_r(&ts.tv_sec, &utc);
+  char stamp[40];
+  const size_t n = std::strftime(stamp, sizeof stamp, "%Y-%m-%dT%H:%M:%S", &utc);
+  std::snprintf(stamp + n, sizeof stamp - n, ".%03ldZ", ts.tv_nsec / 1000000L);
+  std::fprintf(log_, "%s holdfastd: %s\n", stamp, buf);
   std::fflush(log_);
 }
 
@@ -197,11 +207,20 @@ void Engine::OnReading(const Reading& r) {
   scheduler_.Add(r);
 }
 
+void Engine::TimedAdvance(double t) {
+  const auto t0 = std::chrono::steady_clock::now();
+  monitor_.Advance(t);
+  const double ms = std::chrono::duration<double, std::milli>(std::chrono::steady_clock::now() - t0).count();
+  ++counters_.ticks;
+  counters_.tick_ms_sum += ms;
+  if (ms > counters_.tick_ms_max) counters_.tick_ms_max = ms;
+}
+
 void Engine::Step() {
   bool ticked = false;
   scheduler_.Release([this](const Reading& r) { monitor_.Feed(r); },
                      [this, &ticked](double t) {
-                       monitor_.Advance(t);
+                       TimedAdvance(t);
                        ticked = true;
                      });
   if (ticked) dirty_ = true;
@@ -212,7 +231,7 @@ void Engine::Flush() {
   bool ticked = false;
   scheduler_.Flush([this](const Reading& r) { monitor_.Feed(r); },
                    [this, &ticked](double t) {
-                     monitor_.Advance(t);
+                     TimedAdvance(t);
                      ticked = true;
                    });
   if (ticked) dirty_ = true;
@@ -233,7 +252,6 @@ void Engine::FlushEvents() {
     r.payload = EventJson(site_, e);
     if (known) touched[static_cast<size_t>(e.segment)] = true;
     records.push_back(std::move(r));
-    Log("alarm event %s", records.back().payload.c_str());
   }
   counters_.events += events.size();
   events.clear();
@@ -245,6 +263,7 @@ void Engine::FlushEvents() {
   }
   // 2. Out.
   for (const JournalRecord& r : records) {
+    Log("alarm event %s", r.payload.c_str());
     if (event_stream_) {
       std::fprintf(event_stream_, "%s\n", r.payload.c_str());
       std::fflush(event_stream_);
@@ -413,6 +432,11 @@ std::string Engine::StatusJson(std::string_view state, double now_s) const {
   s += ",\"next_seq\":" + std::to_string(monitor_.next_sequence());
   s += ",\"commands\":" + std::to_string(counters_.commands);
   s += ",\"commands_rejected\":" + std::to_string(counters_.commands_rejected);
+  char tick[96];
+  std::snprintf(tick, sizeof tick, ",\"tick_ms_mean\":%.3f,\"tick_ms_max\":%.3f",
+                counters_.ticks ? counters_.tick_ms_sum / static_cast<double>(counters_.ticks) : 0.0,
+                counters_.tick_ms_max);
+  s += tick;
   s += "}";
   return s;
 }

@@ -57,6 +57,10 @@ struct EngineCounters {
   uint64_t commands = 0, commands_applied = 0, commands_rejected = 0;
   uint64_t events = 0, events_published = 0, events_acked = 0, events_republished = 0;
   uint64_t checkpoints = 0, checkpoint_failures = 0, journal_failures = 0;
+  // Wall time of Monitor::Advance (one tick of every segment: the decision
+  // itself), for the heartbeat and the load bench.
+  uint64_t ticks = 0;
+  double tick_ms_sum = 0.0, tick_ms_max = 0.0;
 };
 
 class Engine {
@@ -107,6 +111,7 @@ class Engine {
 
  private:
   class Collector;
+  void TimedAdvance(double t);
   void HandleReadings(std::string_view topic_point, std::string_view payload, double now_s);
   void HandleCommand(std::string_view user, std::string_view payload, double now_s);
   void FlushEvents();

@@ -140,7 +140,7 @@ class Broker:
         import pwd
         lines = ["user " + pwd.getpwuid(os.getuid()).pw_name, "per_listener_settings false", "allow_anonymous false",
                  "password_file " + pw, "acl_file " + os.path.join(d, "acl"),
-                 "max_queued_messages 0", "max_inflight_messages 0",
+                 "max_queued_messages 0", "max_inflight_messages 0", "set_tcp_nodelay true",
                  "log_dest file " + os.path.join(d, "mosquitto.log"), "log_type error", "log_type warning",
                  "log_type notice"]
         if persistence:
