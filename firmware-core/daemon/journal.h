@@ -37,6 +37,11 @@ uint32_t Crc32(std::string_view data);
 
 class Journal {
  public:
+  Journal() = default;
+  ~Journal();
+  Journal(const Journal&) = delete;
+  Journal& operator=(const Journal&) = delete;
+
   struct Options {
     std::string dir;                // created if missing
     std::size_t compact_after = 256;  // retired records in the file before a rewrite
@@ -84,12 +89,6 @@ class Journal {
   uint64_t acked_through_ = 0, max_seq_ = 0;
   uint64_t dropped_tail_bytes_ = 0, compactions_ = 0;
   std::size_t retired_in_file_ = 0;
-
- public:
-  Journal() = default;
-  ~Journal();
-  Journal(const Journal&) = delete;
-  Journal& operator=(const Journal&) = delete;
 };
 
 }  // namespace holdfast::daemon

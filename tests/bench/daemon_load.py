@@ -17,7 +17,7 @@ Reported:
               broker's share on top of the decision itself (whose delay is
               in data time).
 
-Usage: daemon_load.py HOLDFASTD SITE READINGS WORKDIR [--segments 200] [--seconds 150]
+Usage: daemon_load.py HOLDFASTD SITE READINGS WORKDIR [--segments 200] [--seconds 180]
                       [--pace 1] [--step-at 70]
 --pace N feeds N data seconds per wall second (the smoke run in ctest uses a
 few segments at a high pace: it checks that the bench works, not the figures).
@@ -33,9 +33,9 @@ ap.add_argument("site")
 ap.add_argument("readings")
 ap.add_argument("work")
 ap.add_argument("--segments", type=int, default=200)
-ap.add_argument("--seconds", type=int, default=150, help="data seconds to feed")
+ap.add_argument("--seconds", type=int, default=180, help="data seconds to feed")
 ap.add_argument("--pace", type=float, default=1.0, help="data seconds per wall second")
-ap.add_argument("--step-at", type=int, default=70, help="data second of the rupture step")
+ap.add_argument("--step-at", type=int, default=70, help="data second of the first rupture step")
 args = ap.parse_args()
 shutil.rmtree(args.work, ignore_errors=True)
 os.makedirs(args.work)
@@ -150,7 +150,7 @@ for k, sec in enumerate(seconds):
         measure_from, cpu0 = time.time(), cpu_ticks(daemon.proc.pid)
     lines = []
     for i in range(args.segments):
-        stepped = i % 10 == 0 and k >= args.step_at
+        stepped = i % 10 == 0 and k >= args.step_at + 3 * (i // 10)  # staggered: one alarm tick each
         lines.append(json.dumps([{"point": "%s-%s" % (sid(i), p), "time": t, "value": step(p, v) if stepped else v}
                                  for p, t, v in sec], separators=(",", ":")))
     handed[k] = time.time()
