@@ -205,7 +205,11 @@ int RunBroker(Engine* engine, const DaemonOptions& o) {
   engine->SetLink(&link);
 
   mqtt::connect_options opts;
-  opts.set_clean_session(false);  // the broker queues readings while the daemon restarts
+  // A clean session on every connect: the daemon re-subscribes each time and
+  // republishes its journal itself, so it needs no broker-side session
+  // state. Readings published while the daemon is disconnected are therefore
+  // not queued for it: the balance treats them as a gap (config/DAEMON.md).
+  opts.set_clean_session(true);
   opts.set_keep_alive_interval(static_cast<int>(o.keep_alive_s));
   opts.set_connect_timeout(static_cast<int>(kConnectTimeout_s));
   opts.set_max_inflight(1024);
@@ -264,10 +268,14 @@ int RunBroker(Engine* engine, const DaemonOptions& o) {
               backoff_s = kReconnectMin_s;
               std::fprintf(stderr, "holdfastd: connected to %s\n", o.broker_uri.c_str());
               SetNoDelayToPort(UriPort(o.broker_uri));
+              // Subscribed before the online status goes out: a client that
+              // sees "online" can command at once.
               try {
-                client.subscribe(engine->topics().ReadingsFilter(), 1);
-                client.subscribe(engine->topics().ReadingsBatch(), 1);
-                client.subscribe(engine->topics().CommandsFilter(), 1);
+                const auto wait = std::chrono::milliseconds(static_cast<int>(kConnectTimeout_s * 1000));
+                for (const std::string& filter : {engine->topics().ReadingsFilter(), engine->topics().ReadingsBatch(),
+                                                  engine->topics().CommandsFilter()})
+                  if (!client.subscribe(filter, 1)->wait_for(wait))
+                    std::fprintf(stderr, "holdfastd: no SUBACK for %s\n", filter.c_str());
               } catch (const mqtt::exception& e) {
                 std::fprintf(stderr, "holdfastd: subscribe failed: %s\n", e.what());
               }

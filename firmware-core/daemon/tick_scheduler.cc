@@ -23,7 +23,10 @@ void TickScheduler::Init(const Options& options, double resume_after_s) {
   heap_ = {};
   order_ = 0;
   resume_after_ = resume_after_s;
-  newest_ = first_tick_ = last_tick_ = std::nan("");
+  newest_ = first_tick_ = std::nan("");
+  // The previous run's last tick stands until this run computes one: data
+  // time for commands and checkpoints right after a restart.
+  last_tick_ = resume_after_s;
   next_k_ = 0;
   dropped_before_resume_ = gaps_jumped_ = 0;
 }

@@ -47,7 +47,8 @@ class TickScheduler {
   // reading, as the file tick loop does.
   void Flush(const FeedFn& feed, const AdvanceFn& advance);
 
-  double last_tick_s() const { return last_tick_; }     // NaN before the first tick
+  // The last tick computed (by this run, or by the run resumed from); NaN before any.
+  double last_tick_s() const { return last_tick_; }
   double newest_s() const { return newest_; }           // newest reading time seen
   std::size_t buffered() const { return heap_.size(); }
   uint64_t dropped_before_resume() const { return dropped_before_resume_; }

@@ -47,6 +47,14 @@ def wait_data_time(broker, at_least, timeout=TIMEOUT):
     return wait_for(lambda: data_time(broker) >= at_least, timeout, "daemon data time %s" % at_least, 0.3)
 
 
+def restart(daemon):
+    """Starts the daemon and waits for its online status from this run (subscribed by then)."""
+    since = time.strftime("%Y-%m-%dT%H:%M:%S", time.gmtime(time.time() - 1))
+    daemon.start()
+    wait_for(lambda: (lambda st: st.get("state") == "online" and st.get("wall_time", "") >= since)(
+        broker.get_retained("watcher", PREFIX + "/daemon", timeout=2) or {}), TIMEOUT, "the restarted daemon online")
+
+
 def checkpoint_next_seq(daemon):
     try:
         doc = json.load(open(os.path.join(daemon.dir, "state", "checkpoint.json")))
@@ -201,7 +209,7 @@ try:
         time.sleep(1.5)  # a periodic checkpoint
         daemon.kill9()
         F.check(True, "daemon killed with SIGKILL at data time 07:39:5x")
-        daemon.start()
+        restart(daemon)
         wait_for(lambda: "resumed from" in daemon.log_text(), TIMEOUT, "the daemon to resume from its checkpoint")
         F.check(True, "daemon resumed from its checkpoint")
         rest = os.path.join(work, "rest.jsonl")
@@ -214,7 +222,7 @@ try:
         # raise the alarm again: engine_test covers that window without a broker.)
         wait_for(lambda: checkpoint_next_seq(daemon) >= 2, TIMEOUT, "the checkpoint to hold the alarm")
         daemon.kill9()
-        daemon.start()
+        restart(daemon)
         wait_for(lambda: daemon.log_text().count("resumed from") >= 2, TIMEOUT, "the second resume")
         command(broker, "alice", {"id": "a-1", "segment": "KR-1", "alarm": "leak", "command": "acknowledge"})
         wait_for(lambda: [e for e in events_of(watcher) if e["cause"] == "acknowledged"], TIMEOUT, "the ack event")

@@ -154,6 +154,7 @@ TEST(TickScheduler, ResumeDropsOldReadingsAndJumpsGaps) {
     if (ticks++ == 0) first = t;
   };
   Reading r;
+  EXPECT_EQ(s.last_tick_s(), 100.0);  // data time resumes at the checkpointed tick
   r.time_s = 99.0;
   s.Add(r);
   EXPECT_EQ(s.dropped_before_resume(), 1u);
