@@ -183,10 +183,13 @@ try:
         time.sleep(2)
         # Last will: the daemon's status reads offline once the broker is back? (the will is sent by the
         # broker when it notices; a killed broker sends none.) Restart on the same port.
+        since = time.strftime("%Y-%m-%dT%H:%M:%S", time.gmtime(time.time() - 1))
         broker.start()
         F.check(True, "broker restarted")
-        wait_for(lambda: (broker.get_retained("watcher", PREFIX + "/daemon") or {}).get("state") == "online",
-                 TIMEOUT, "the daemon back online")
+        # Its own online status after the restart (the broker's persistence keeps the old one),
+        # published once its subscriptions are confirmed.
+        wait_for(lambda: (lambda st: st.get("state") == "online" and st.get("wall_time", "") >= since)(
+            broker.get_retained("watcher", PREFIX + "/daemon", timeout=2) or {}), TIMEOUT, "the daemon back online")
         rest = os.path.join(work, "rest.jsonl")
         batches(readings, rest, start="2026-03-14T08:16:30")
         broker.pub_lines("feeder", PREFIX + "/readings", rest)
