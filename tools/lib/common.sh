@@ -10,6 +10,7 @@ HOLDFAST_PACKAGES=(
   libgtest-dev libgmock-dev libbenchmark-dev libcli11-dev
   python3 python3-iapws python3-scipy python3-numpy python3-matplotlib
   mosquitto mosquitto-clients openssl
+  clang libclang-rt-14-dev
 )
 
 holdfast_ensure_packages() {

@@ -1,0 +1,201 @@
+#include "daemon_config.h"
+
+#include <sys/stat.h>
+
+#include <cerrno>
+#include <cmath>
+#include <cstring>
+#include <fstream>
+#include <set>
+#include <sstream>
+
+#include <nlohmann/json.hpp>
+
+namespace holdfast::daemon {
+namespace {
+
+std::string DirOf(const std::string& path) {
+  const size_t slash = path.find_last_of('/');
+  if (slash == std::string::npos) return ".";
+  return slash == 0 ? "/" : path.substr(0, slash);
+}
+
+std::string Resolve(const std::string& dir, const std::string& p) {
+  if (p.empty() || p[0] == '/') return p;
+  return dir + "/" + p;
+}
+
+}  // namespace
+
+bool DaemonOptions::IsValid(std::string* why) const {
+  auto fail = [&](const std::string& m) {
+    if (why) *why = m;
+    return false;
+  };
+  if (site_file.empty()) return fail("site_file: required");
+  if (!broker_uri.empty()) {
+    const bool tls = broker_uri.rfind("ssl://", 0) == 0;
+    if (!tls && broker_uri.rfind("tcp://", 0) != 0)
+      return fail("broker_uri: must start with tcp:// or ssl:// (got \"" + broker_uri + "\")");
+    if (tls && tls_ca_file.empty()) return fail("tls_ca_file: required with an ssl:// broker_uri");
+    if (!tls && (!tls_ca_file.empty() || !tls_cert_file.empty()))
+      return fail("tls_ca_file/tls_cert_file: given, but broker_uri is not ssl://");
+    if (tls_cert_file.empty() != tls_key_file.empty())
+      return fail("tls_cert_file and tls_key_file: give both or neither");
+    if (client_id.empty() || client_id.size() > 64) return fail("client_id: 1 to 64 characters");
+  }
+  if (topic_prefix.empty() || topic_prefix.back() == '/' || topic_prefix.front() == '/' ||
+      topic_prefix.find_first_of("+#") != std::string::npos)
+    return fail("topic_prefix: non-empty, no leading or trailing '/', no wildcards (got \"" + topic_prefix + "\")");
+  if (journal_dir.empty()) return fail("journal_dir: required");
+  if (state_dir.empty()) return fail("state_dir: required");
+  auto positive = [&](double v, const char* name) {
+    if (!(v > 0.0) || !std::isfinite(v)) {
+      if (why) *why = std::string(name) + ": must be a positive number of seconds";
+      return false;
+    }
+    return true;
+  };
+  if (!positive(keep_alive_s, "keep_alive_s") || !positive(checkpoint_period_s, "checkpoint_period_s") ||
+      !positive(status_period_s, "status_period_s") || !positive(heartbeat_period_s, "heartbeat_period_s") ||
+      !positive(max_tick_gap_s, "max_tick_gap_s"))
+    return false;
+  if (!(tick_lateness_s >= 0.0) || !std::isfinite(tick_lateness_s))
+    return fail("tick_lateness_s: must be >= 0 seconds");
+  if (!(max_future_s >= 0.0) || !std::isfinite(max_future_s)) return fail("max_future_s: must be >= 0 seconds");
+  if (max_payload_bytes < 64 || max_payload_bytes > (16u << 20)) return fail("max_payload_bytes: 64 to 16777216");
+  if (max_batch < 1 || max_batch > 100000) return fail("max_batch: 1 to 100000");
+  if (queue_capacity < 16 || queue_capacity > (1u << 24)) return fail("queue_capacity: 16 to 16777216");
+  for (const std::string& o : operators)
+    if (o.empty() || o.size() > 31) return fail("operators: each name 1 to 31 characters");
+  return true;
+}
+
+bool LoadDaemonConfig(const std::string& path, DaemonOptions* options, std::string* why) {
+  std::ifstream in(path, std::ios::binary);
+  if (!in) {
+    if (why) *why = path + ": cannot read the file: " + std::strerror(errno);
+    return false;
+  }
+  std::stringstream ss;
+  ss << in.rdbuf();
+  const nlohmann::json doc = nlohmann::json::parse(ss.str(), nullptr, false);
+  if (doc.is_discarded() || !doc.is_object()) {
+    if (why) *why = path + ": not a JSON object (parse error)";
+    return false;
+  }
+  std::vector<std::string> problems;
+  auto problem = [&](const std::string& key, const std::string& m) { problems.push_back(path + ":/" + key + ": " + m); };
+  DaemonOptions o;
+  const std::string dir = DirOf(path);
+  if (!doc.contains("format") || doc["format"] != kDaemonConfigFormat)
+    problem("format", std::string("expected \"") + kDaemonConfigFormat + "\"");
+  auto get_string = [&](const char* key, std::string* out, bool is_path) {
+    if (!doc.contains(key)) return;
+    if (!doc[key].is_string()) return problem(key, "must be a string");
+    *out = is_path ? Resolve(dir, doc[key].get<std::string>()) : doc[key].get<std::string>();
+  };
+  auto get_number = [&](const char* key, double* out) {
+    if (!doc.contains(key)) return;
+    if (!doc[key].is_number()) return problem(key, "must be a number");
+    *out = doc[key].get<double>();
+  };
+  auto get_size = [&](const char* key, std::size_t* out) {
+    if (!doc.contains(key)) return;
+    if (!doc[key].is_number_unsigned()) return problem(key, "must be a non-negative integer");
+    *out = doc[key].get<std::size_t>();
+  };
+  static const std::set<std::string> known = {
+      "format", "site_file", "tuning_file", "broker_uri", "client_id", "credentials_file", "tls_ca_file",
+      "tls_cert_file", "tls_key_file", "keep_alive_s", "topic_prefix", "journal_dir", "state_dir",
+      "checkpoint_period_s", "status_period_s", "heartbeat_period_s", "tick_lateness_s", "max_future_s",
+      "max_tick_gap_s", "max_payload_bytes", "max_batch", "queue_capacity", "operators", "comment"};
+  for (auto it = doc.begin(); it != doc.end(); ++it)
+    if (!known.count(it.key())) problem(it.key(), "unknown key");
+  get_string("site_file", &o.site_file, true);
+  get_string("tuning_file", &o.tuning_file, true);
+  get_string("broker_uri", &o.broker_uri, false);
+  get_string("client_id", &o.client_id, false);
+  get_string("credentials_file", &o.credentials_file, true);
+  get_string("tls_ca_file", &o.tls_ca_file, true);
+  get_string("tls_cert_file", &o.tls_cert_file, true);
+  get_string("tls_key_file", &o.tls_key_file, true);
+  get_number("keep_alive_s", &o.keep_alive_s);
+  get_string("topic_prefix", &o.topic_prefix, false);
+  get_string("journal_dir", &o.journal_dir, true);
+  get_string("state_dir", &o.state_dir, true);
+  get_number("checkpoint_period_s", &o.checkpoint_period_s);
+  get_number("status_period_s", &o.status_period_s);
+  get_number("heartbeat_period_s", &o.heartbeat_period_s);
+  get_number("tick_lateness_s", &o.tick_lateness_s);
+  get_number("max_future_s", &o.max_future_s);
+  get_number("max_tick_gap_s", &o.max_tick_gap_s);
+  get_size("max_payload_bytes", &o.max_payload_bytes);
+  get_size("max_batch", &o.max_batch);
+  get_size("queue_capacity", &o.queue_capacity);
+  if (doc.contains("operators")) {
+    if (!doc["operators"].is_array()) {
+      problem("operators", "must be an array of user names");
+    } else {
+      for (const auto& u : doc["operators"]) {
+        if (!u.is_string()) {
+          problem("operators", "must be an array of user names");
+          break;
+        }
+        o.operators.push_back(u.get<std::string>());
+      }
+    }
+  }
+  std::string reason;
+  if (problems.empty() && !o.IsValid(&reason)) problems.push_back(path + ":/" + reason);
+  if (!problems.empty()) {
+    if (why) {
+      why->clear();
+      for (const std::string& p : problems) *why += (why->empty() ? "" : "\n") + p;
+    }
+    return false;
+  }
+  *options = o;
+  return true;
+}
+
+bool ReadCredentialsFile(const std::string& path, Credentials* out, std::string* why) {
+  struct stat st {};
+  if (::stat(path.c_str(), &st) != 0) {
+    if (why) *why = path + ": cannot read the credentials file: " + std::strerror(errno);
+    return false;
+  }
+  if (!S_ISREG(st.st_mode)) {
+    if (why) *why = path + ": the credentials file is not a regular file";
+    return false;
+  }
+  if ((st.st_mode & 077) != 0) {
+    char mode[8];
+    std::snprintf(mode, sizeof mode, "%03o", static_cast<unsigned>(st.st_mode & 0777));
+    if (why)
+      *why = path + ": the credentials file is accessible to group or others (mode " + mode +
+             "); run chmod 600 (or 400) on it, owned by the service user";
+    return false;
+  }
+  std::ifstream in(path);
+  if (!in) {
+    if (why) *why = path + ": cannot open the credentials file: " + std::strerror(errno);
+    return false;
+  }
+  Credentials c;
+  std::getline(in, c.user);
+  std::getline(in, c.password);
+  auto strip = [](std::string* s) {
+    while (!s->empty() && (s->back() == '\r' || s->back() == ' ' || s->back() == '\t')) s->pop_back();
+  };
+  strip(&c.user);
+  strip(&c.password);
+  if (c.user.empty() || c.password.empty()) {
+    if (why) *why = path + ": the credentials file must hold the user name on line 1 and the password on line 2";
+    return false;
+  }
+  *out = std::move(c);
+  return true;
+}
+
+}  // namespace holdfast::daemon
