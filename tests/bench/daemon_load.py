@@ -3,8 +3,8 @@
 One daemon monitors N copies of the demo segment (9 points each: the demo
 segment's flows, pressures, temperatures and tank level), fed at 1 Hz per
 point by a load generator over loopback through a private mosquitto. Every
-tenth segment sees a sudden rupture-like step (outlet flow -30 %, both end
-pressures down) part-way through, which raises its rupture alarm.
+tenth segment sees a sudden rupture-like step (inlet flow +15 %, outlet flow
+-30 %, both end pressures down) part-way through, which raises its rupture alarm.
 
 Reported:
   CPU share   holdfastd's user+system CPU time over the measured wall time
@@ -92,6 +92,12 @@ for row in rows:
     latest[row["point"]] = v
 
 def step(point, v):
+    # A rupture as the meters see it: the pump runs out on its curve (inlet
+    # flow up), the outlet meter reads less, both end pressures fall. The
+    # rupture path wants the metered shortfall to grow, not only the
+    # pressures to fall (RuptureOptions::metered_share).
+    if point == "CF-FT-101":
+        return v * 1.15
     if point == "MB-FT-302":
         return v * 0.7
     if point == "CF-PT-101":
