@@ -55,21 +55,6 @@ void Engine::Log(const char* fmt, ...) {
 
 namespace {
 
-bool EnsureDir(const std::string& dir, std::string* why) {
-  std::string cur;
-  size_t pos = 0;
-  while (pos != std::string::npos) {
-    pos = dir.find('/', pos + 1);
-    cur = dir.substr(0, pos);
-    if (cur.empty()) continue;
-    if (::mkdir(cur.c_str(), 0750) != 0 && errno != EEXIST) {
-      if (why) *why = cur + ": cannot create the directory: " + std::strerror(errno);
-      return false;
-    }
-  }
-  return true;
-}
-
 // The monitor state with its sequence counter raised to at least `next_seq`
 // (events journaled after the last checkpoint keep their numbers).
 bool RaiseNextSeq(std::string* blob, uint64_t next_seq, std::string* why) {
@@ -124,7 +109,7 @@ bool Engine::Init(const DaemonOptions& options, std::FILE* log, std::string* why
   if (journal_.dropped_tail_bytes() > 0)
     Log("journal %s: dropped a torn tail of %" PRIu64 " bytes", journal_.path().c_str(),
         journal_.dropped_tail_bytes());
-  if (!EnsureDir(options.state_dir, why)) return false;
+  if (!MakeDirs(options.state_dir, why)) return false;
   checkpoint_path_ = options.state_dir + "/checkpoint.json";
   audit_path_ = options.state_dir + "/audit.jsonl";
 

@@ -26,20 +26,6 @@ std::array<uint32_t, 256> MakeCrcTable() {
   return t;
 }
 
-bool MakeDirs(const std::string& dir, std::string* why) {
-  std::string cur;
-  size_t pos = 0;
-  while (pos != std::string::npos) {
-    pos = dir.find('/', pos + 1);
-    cur = dir.substr(0, pos);
-    if (cur.empty()) continue;
-    if (::mkdir(cur.c_str(), 0750) != 0 && errno != EEXIST) {
-      if (why) *why = cur + ": cannot create the directory: " + std::strerror(errno);
-      return false;
-    }
-  }
-  return true;
-}
 
 bool WriteAll(int fd, const std::string& s) {
   size_t done = 0;
@@ -73,6 +59,21 @@ bool Field(std::string_view line, size_t* pos, char end_char, int base, uint64_t
 }
 
 }  // namespace
+
+bool MakeDirs(const std::string& dir, std::string* why) {
+  std::string cur;
+  size_t pos = 0;
+  while (pos != std::string::npos) {
+    pos = dir.find('/', pos + 1);
+    cur = dir.substr(0, pos);
+    if (cur.empty()) continue;
+    if (::mkdir(cur.c_str(), 0750) != 0 && errno != EEXIST) {
+      if (why) *why = cur + ": cannot create the directory: " + std::strerror(errno);
+      return false;
+    }
+  }
+  return true;
+}
 
 uint32_t Crc32(std::string_view data) {
   static const std::array<uint32_t, 256> table = MakeCrcTable();

@@ -26,6 +26,10 @@
 
 namespace holdfast::daemon {
 
+// Creates `dir` and its parents (mode 0750) as needed; false with the
+// reason (the directory that could not be made) otherwise.
+bool MakeDirs(const std::string& dir, std::string* why);
+
 struct JournalRecord {
   uint64_t seq = 0;  // the event's sequence number, strictly increasing
   std::string topic;
