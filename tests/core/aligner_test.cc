@@ -198,31 +198,73 @@ TEST_F(AlignerTest, NonFiniteValuesAndTimesAreRejected) {
   EXPECT_DOUBLE_EQ(aligner_.value(kFlow), 0.2);
 }
 
-TEST_F(AlignerTest, BadQualityIsHeldButNotUsable) {
+TEST_F(AlignerTest, BadQualityHoldsTheLastGoodValue) {
   ASSERT_EQ(aligner_.Feed(At(kPressure, 100.0, 20.0)), FeedStatus::kAccepted);
   EXPECT_TRUE(aligner_.Usable(kPressure, 100.0));
-  // A bad reading is accepted (it is newer) and makes the point unusable,
-  // but never replaces the last good value.
+  // A bad reading is accepted (it is newer), counted and flagged, but never
+  // replaces the last good value, which stays in use until it is stale: one
+  // bad sample must not take a boundary meter (and so the segment) out.
   EXPECT_EQ(aligner_.Feed(At(kPressure, 102.0, 0.0, Quality::kBad)), FeedStatus::kAccepted);
   EXPECT_TRUE(aligner_.held(kPressure).has_value);
   EXPECT_EQ(aligner_.held(kPressure).quality, Quality::kBad);
   EXPECT_DOUBLE_EQ(aligner_.value(kPressure), 20.0e5 + kAtm_pa);  // still 20 bar gauge
-  EXPECT_FALSE(aligner_.Usable(kPressure, 102.0));
+  EXPECT_TRUE(aligner_.Usable(kPressure, 102.0));
+  EXPECT_NE(aligner_.Dq(kPressure, 102.0) & kDqBadQuality, 0);
   EXPECT_EQ(aligner_.counters().bad_quality, 1u);
   EXPECT_EQ(aligner_.counters().accepted, 2u);
-  // Uncertain is usable.
+  // Uncertain is usable and clears the flag.
   EXPECT_EQ(aligner_.Feed(At(kPressure, 104.0, 20.1, Quality::kUncertain)), FeedStatus::kAccepted);
   EXPECT_TRUE(aligner_.Usable(kPressure, 104.0));
-  // A good reading restores it.
+  EXPECT_EQ(aligner_.Dq(kPressure, 104.0), 0);
   EXPECT_EQ(aligner_.Feed(At(kPressure, 106.0, 20.2)), FeedStatus::kAccepted);
   EXPECT_TRUE(aligner_.Usable(kPressure, 106.0));
   EXPECT_EQ(aligner_.counters().bad_quality, 1u);
-  // A late bad reading is counted both ways.
+  // Only bad readings from then on: the held value ages out at the
+  // staleness limit (30 s after the last good one, t = 106).
   aligner_.SetTickTime(120.0);
   EXPECT_EQ(aligner_.Feed(At(kPressure, 110.0, 0.0, Quality::kBad)), FeedStatus::kLate);
   EXPECT_EQ(aligner_.counters().bad_quality, 2u);
   EXPECT_EQ(aligner_.counters().late, 1u);
-  EXPECT_FALSE(aligner_.Usable(kPressure, 120.0));
+  EXPECT_TRUE(aligner_.Usable(kPressure, 120.0));
+  EXPECT_TRUE(aligner_.Usable(kPressure, 136.0));
+  EXPECT_FALSE(aligner_.Usable(kPressure, 136.5));
+  EXPECT_NE(aligner_.Dq(kPressure, 136.5) & kDqStale, 0);
+  EXPECT_EQ(PointDqNames(aligner_.Dq(kPressure, 136.5)), "bad_quality|stale");
+}
+
+// Frozen transmitters are found by evidence (the point's own learnt noise),
+// never by a steady value: a closed meter at zero, or a quantised value that
+// rarely changes, stays healthy for any length of time. The repeat count is
+// the geometric-run argument (1 - p)^n < P for independent readings that
+// change with probability p (hand arithmetic).
+TEST_F(AlignerTest, FrozenNeedsEvidenceOfNoise) {
+  double t = 0.0;
+  // A noisy pressure: every reading differs (change share -> 1).
+  for (int i = 0; i < 300; ++i, t += 1.0) aligner_.Feed(At(kPressure, t, 20.0 + 0.001 * (i % 7) + 0.0001 * i));
+  EXPECT_EQ(aligner_.Dq(kPressure, t), 0);
+  EXPECT_GT(aligner_.held(kPressure).change_share, 0.9);
+  // It sticks: the default needs max(12, ln 1e-9 / ln(1 - p)) repeats, 12 here.
+  for (int i = 0; i < 11; ++i, t += 1.0) aligner_.Feed(At(kPressure, t, 30.0));
+  EXPECT_EQ(aligner_.Dq(kPressure, t) & kDqFlatline, 0);  // 10 repeats so far
+  for (int i = 0; i < 3; ++i, t += 1.0) aligner_.Feed(At(kPressure, t, 30.0));
+  EXPECT_NE(aligner_.Dq(kPressure, t) & kDqFlatline, 0);
+  EXPECT_TRUE(aligner_.Usable(kPressure, t));  // flagged, still in use
+  aligner_.Feed(At(kPressure, t, 30.01));
+  EXPECT_EQ(aligner_.Dq(kPressure, t) & kDqFlatline, 0);  // it moved again
+
+  // A meter that closes reads exactly zero for a day: healthy.
+  double u = 0.0;
+  for (int i = 0; i < 300; ++i, u += 1.0) aligner_.Feed(At(kFlow, u, 700.0 + 0.37 * (i % 11)));
+  for (int i = 0; i < 86400; i += 5, u += 5.0) aligner_.Feed(At(kFlow, u, 0.0));
+  EXPECT_EQ(aligner_.Dq(kFlow, u), 0);
+  EXPECT_TRUE(aligner_.Usable(kFlow, u));
+
+  // A coarse temperature that changes on one reading in ten: never frozen,
+  // not even after a week of one value (it never showed it was noisy).
+  double v = 0.0;
+  for (int i = 0; i < 2000; ++i, v += 10.0) aligner_.Feed(At(kTemperature, v, 15.0 + (i / 10) % 2 * 0.1));
+  for (int i = 0; i < 60480; ++i, v += 10.0) aligner_.Feed(At(kTemperature, v, 15.0));
+  EXPECT_EQ(aligner_.Dq(kTemperature, v), 0);
 }
 
 TEST_F(AlignerTest, ResetForgetsEverything) {

@@ -185,6 +185,10 @@ struct AlarmEvidence {
   double statistic = std::numeric_limits<double>::quiet_NaN();   // detector statistic
   double threshold = std::numeric_limits<double>::quiet_NaN();   // its alarm threshold
   double window_s = std::numeric_limits<double>::quiet_NaN();    // balance window
+  double leak_rate_sigma_kg_s = std::numeric_limits<double>::quiet_NaN();  // one sigma of leak_rate_kg_s
+  double location_low_m = std::numeric_limits<double>::quiet_NaN();   // location band
+  double location_high_m = std::numeric_limits<double>::quiet_NaN();
+  double detector_target_kg_s = std::numeric_limits<double>::quiet_NaN();  // the leading detector's target size
   char detail[kDetailSize] = {};  // short free text, NUL-terminated
 
   // Copies at most kDetailSize - 1 bytes (truncates; never overflows).

@@ -22,21 +22,50 @@ enum class FeedStatus : uint8_t {
 };
 const char* FeedStatusName(FeedStatus s);
 
-// Data-quality verdicts on a point (bit flags, HeldValue::dq).
+// Data-quality verdicts on a point (bit flags, HeldValue::dq and Aligner::Dq).
+// None of them takes a point out of use by itself: the last good value is
+// held until it is older than the point's staleness limit (Usable), so one
+// bad sample costs nothing but a count and a flag.
 enum PointDq : uint8_t {
-  kDqOutOfRange = 1u << 0,   // latest reading outside the point's configured range
-  kDqRateOfChange = 1u << 1, // latest reading jumped faster than the plausible rate
-  kDqFlatline = 1u << 2,     // value unchanged for longer than the flatline limit (set at tick)
+  kDqOutOfRange = 1u << 0,   // latest reading outside the point's configured range (excluded)
+  kDqRateOfChange = 1u << 1, // latest reading jumped faster than the plausible rate (excluded)
+  kDqFlatline = 1u << 2,     // frozen: a point known to be noisy repeats one value implausibly long
+  kDqBadQuality = 1u << 3,   // latest reading flagged bad by its source (excluded)
+  kDqStale = 1u << 4,        // no good value within the staleness limit (set at tick: unusable)
+  kDqMissing = 1u << 5,      // no good value ever (set at tick: unusable)
 };
+// Comma-separated names of the set PointDq flags ("" when none).
+std::string PointDqNames(uint8_t dq);
 
-// Plausibility limits applied to every point (per-point ranges come from the
+// Plausibility checks applied to every point (per-point ranges come from the
 // site config).
+//
+// Frozen transmitters are found by evidence, never by a steady value alone:
+// a closed meter reads exactly zero for hours, a low-flow cut-off reads zero,
+// a quantised or report-by-exception value repeats at its heartbeat, and all
+// of these are healthy. A point is called frozen only when it has shown that
+// it is noisy (it changed on at least frozen_min_change_share of its recent
+// readings) and then repeats one value so many times in a row that a healthy
+// point with that change share would do so with probability below
+// frozen_false_probability, (1 - p)^n < P, or when such a noisy point repeats
+// one value for longer than flatline_s. A zero flow is never frozen. A
+// frozen verdict raises data quality; the point stays in use.
 struct DataQualityOptions {
-  // A value that has not changed at all for this long is a frozen transmitter.
+  // A noisy point (see above) whose value has not changed for this long is
+  // frozen whatever its reading count.
   double flatline_s = 6.0 * 3600.0;
   // Plausible rate of change: the whole configured range in this many seconds.
   // A faster jump excludes the reading (points without a range are not checked).
   double full_range_s = 5.0;
+  // Probability that a healthy noisy point repeats its value as often as a
+  // frozen verdict needs.
+  double frozen_false_probability = 1e-9;
+  // Share of readings that change a healthy point's value before it counts
+  // as noisy (learnt with weight 1 / frozen_learning_readings).
+  double frozen_min_change_share = 0.5;
+  double frozen_learning_readings = 200.0;
+  // At least this many repeats, whatever the change share.
+  int frozen_min_repeats = 12;
   bool IsValid(std::string* why) const;
 };
 
@@ -63,8 +92,13 @@ struct HeldValue {
   Quality quality = Quality::kBad;  // quality of the newest reading
   bool has_value = false;    // a good or uncertain value has arrived
   bool seen = false;         // any reading has arrived
-  uint8_t dq = 0;            // PointDq flags of the latest reading
+  uint8_t dq = 0;            // PointDq flags of the latest reading (and a frozen verdict)
   double changed_s = 0.0;    // when the value last changed (flatline check)
+  // Frozen check (DataQualityOptions): learnt share of readings that changed
+  // the value, readings since it last changed, and that learning's count.
+  double change_share = 0.0;
+  int32_t repeats = 0;
+  int32_t learnt = 0;
 };
 
 class Aligner {
@@ -78,22 +112,32 @@ class Aligner {
 
   const HeldValue& held(int point) const { return held_[point]; }
   // True when the point has a value of good or uncertain quality no older
-  // than its staleness limit at time t.
+  // than its staleness limit at time t. Bad, out-of-range or implausibly
+  // fast readings in between are excluded and flagged (Dq) but do not make
+  // the point unusable: the last good value is held, as for a late reading.
   bool Usable(int point, double t) const {
     const HeldValue& h = held_[point];
-    return h.has_value && h.quality != Quality::kBad && h.dq == 0 && (t - h.time_s) <= staleness_s_[point] &&
-           (t - h.changed_s) <= dq_.flatline_s;
+    return h.has_value && (t - h.time_s) <= staleness_s_[point];
   }
-  // PointDq flags at time t, including a flatline verdict.
+  // PointDq flags at time t: the latest reading's verdict, a frozen verdict
+  // (including the flatline_s limit for noisy points), stale and missing.
   uint8_t Dq(int point, double t) const {
     const HeldValue& h = held_[point];
-    return static_cast<uint8_t>(h.dq | (h.has_value && (t - h.changed_s) > dq_.flatline_s ? kDqFlatline : 0));
+    uint8_t dq = h.dq;
+    if (!h.has_value) return static_cast<uint8_t>(dq | kDqMissing);
+    if ((t - h.time_s) > staleness_s_[point]) dq |= kDqStale;
+    if (h.change_share >= dq_.frozen_min_change_share && h.learnt >= dq_.frozen_min_repeats &&
+        (t - h.changed_s) > dq_.flatline_s && !(site_->points[point].kind == PointKind::kFlow && h.value_si == 0.0))
+      dq |= kDqFlatline;
+    return dq;
   }
   double value(int point) const { return held_[point].value_si; }
   const AlignerCounters& counters() const { return counters_; }
   int point_count() const { return static_cast<int>(held_.size()); }
 
  private:
+  uint8_t Frozen(int point, HeldValue& h, bool changed, double v) const;
+
   const Site* site_ = nullptr;
   std::vector<HeldValue> held_;
   std::vector<double> staleness_s_;

@@ -27,10 +27,11 @@
 //
 // Operating transients (pump starts, valve moves) show as a large block
 // inventory rate (or, seen by the monitor, as a step in inlet flow or end
-// pressure): for kTransientHold_s after one the detector statistics are held
-// and learning stops ("reduced sensitivity"). A leak that starts in a
-// transient is found when the hold ends; a rupture by the monitor's fast
-// path.
+// pressure): for a hold after one (transient_hold_s, or the monitor's from
+// the line's wave crossing time) the detector statistics are held and
+// learning stops ("reduced sensitivity"). A leak's own consequences are not
+// a transient (SetTransientVeto). A leak that starts in a transient is found
+// when the hold ends; a rupture by the monitor's fast path.
 #pragma once
 
 #include <algorithm>
@@ -71,6 +72,16 @@ struct DecisionOptions {
   // Learning freezes while any detector is above this fraction of its
   // threshold (and learns only blocks that every detector has left behind).
   double freeze_ratio = 0.5;
+  // Reduced sensitivity after an operating transient (the decision's own
+  // inventory-rate test; MarkTransient may give its own duration).
+  double transient_hold_s = kTransientHold_s;
+  // Time constant of the first-order low-pass filter ahead of the decision
+  // (0: none). The leak-rate estimate undoes its lag: the blocks are the
+  // increments of F, the filtered cumulative imbalance C, and since
+  // dF/dt = (C - F) / tau, C = F + tau dF/dt: the unfiltered change of C
+  // since the change point is the blocks' sum plus tau times the change of
+  // the block rate (exact for a first-order filter, whenever the leak began).
+  double input_filter_s = 0.0;
 
   bool IsValid(std::string* why) const;
 };
@@ -92,6 +103,7 @@ struct DetectorStatus {
   double change_point_s = 0.0;
   double sum_kg_s = 0.0;   // sum of (r - bias) since the change point
   int64_t blocks = 0;      // blocks since the change point
+  double cp_block_kg_s = 0.0;  // r - bias of the block at the change point (filter-lag correction)
 };
 
 struct DecisionResult {
@@ -100,7 +112,8 @@ struct DecisionResult {
   int detector_count = 0;
   std::array<DetectorStatus, kMaxDetectors> detectors{};
   int leading = -1;                  // detector with the largest S/h
-  double leak_rate_kg_s = 0.0;       // estimate since the change point (leading detector)
+  double leak_rate_kg_s = 0.0;       // estimate since the change point (leading detector), lag-corrected
+  double leak_rate_sigma_kg_s = 0.0; // its one-sigma uncertainty (long-run sigma of the blocks)
   double change_point_s = 0.0;
   double bias_kg_s = 0.0;
   double sigma_kg_s = 0.0;           // block standard deviation (learnt)
@@ -134,8 +147,15 @@ class SegmentDecision {
   const DecisionResult& result() const { return result_; }
 
   // An operating change seen elsewhere (a step in flow or pressure at the
-  // line ends): sensitivity is reduced from now for kTransientHold_s.
-  void MarkTransient(double t) { transient_until_s_ = std::max(transient_until_s_, t + kTransientHold_s); }
+  // line ends): sensitivity is reduced from now for hold_s (negative: the
+  // options' transient_hold_s).
+  void MarkTransient(double t, double hold_s = -1.0) {
+    transient_until_s_ = std::max(transient_until_s_, t + (hold_s >= 0.0 ? hold_s : options_.transient_hold_s));
+  }
+  // The caller has evidence that large inventory rates now are a leak's own
+  // (the line ends show a leak's signature, rupture.h): while set, the
+  // decision's inventory-rate test does not call them a transient.
+  void SetTransientVeto(bool veto) { transient_veto_ = veto; }
 
   // Seeds the learning (from a tuning file): bias, block sigma, phi, and the
   // block inventory rate's mean and sigma behind the transient test. Without
@@ -160,6 +180,7 @@ class SegmentDecision {
 
  private:
   void EndBlock(double t);
+  void EstimateRate(const DetectorStatus& lead);
   void Learn(double r, double inv_rate);
 
   DecisionOptions options_;
@@ -176,6 +197,7 @@ class SegmentDecision {
   double inv_mean_ = 0.0, inv_var_ = 0.0;
   int64_t inv_blocks_ = 0;  // blocks behind inv_mean_ / inv_var_ (its own count: seeding may skip it)
   double transient_until_s_ = -1e300;
+  bool transient_veto_ = false;
   bool seeded_ = false;  // Seed() was called: no warm-up
   // Blocks waiting to be learnt, oldest first (a ring of kMaxHeldBlocks):
   // block `index` is learnt once every detector has been at zero at or after

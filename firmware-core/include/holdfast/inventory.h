@@ -57,12 +57,19 @@ enum InventoryFlag : uint32_t {
   kInvLevelStale = 1u << 5,
   kInvLevelOutsideTable = 1u << 6,   // tank level outside its strapping table
   kInvOutsideFluidTable = 1u << 7,   // a reach state was clamped to the density table
+  // A tank's own thermometer has not reported: its contents take the line's
+  // inlet temperature meanwhile (flagged, never silent).
+  kInvTankTemperatureSubstituted = 1u << 8,
 };
 
 struct InventoryResult {
   double linepack_kg = 0.0;
   double tank_kg = 0.0;
   double total_kg() const { return linepack_kg + tank_kg; }
+  // The step in the computed inventory this tick from a change of source
+  // alone (a tank's own thermometer taking over from the substitute): no
+  // mass moved, so the balance must not see it.
+  double source_step_kg = 0.0;
   uint32_t flags = 0;
   // Random uncertainty (one sigma, kg) of a single inventory state from the
   // transmitters' random accuracy: the part from pressure and level

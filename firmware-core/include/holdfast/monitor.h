@@ -22,6 +22,7 @@
 #include "holdfast/inventory.h"
 #include "holdfast/locate.h"
 #include "holdfast/reading.h"
+#include "holdfast/rupture.h"
 #include "holdfast/site.h"
 
 namespace holdfast {
@@ -29,8 +30,10 @@ namespace holdfast {
 enum class SegmentStatus : uint8_t {
   kStarting,     // balance valid but the shortest window is not yet full
   kNormal,       // every input fresh, balance valid
-  kDegraded,     // balance computed, but some input is stale or clamped
+  kDegraded,     // balance computed, but some input is suspect, substituted or clamped
   kUnavailable,  // a boundary meter or a pressure transmitter is missing or stale
+  kShutIn,       // blocked in: no flow at any boundary; the balance and the decision go on
+                 // (the inventory must hold apart from its predicted thermal change)
 };
 const char* SegmentStatusName(SegmentStatus s);
 
@@ -47,31 +50,10 @@ enum SegmentFlag : uint32_t {
   kSegMeterMissing = 1u << 16,  // a boundary meter never reported
   kSegMeterStale = 1u << 17,    // a boundary meter's held value is stale or bad
   kSegMeterConditions = 1u << 18,  // a line-volume meter's P or T is missing
+  kSegPointSuspect = 1u << 19,     // a point's latest reading was excluded, or it looks frozen (data quality)
 };
 // Comma-separated names of the set flags ("" when none).
 std::string SegmentFlagNames(uint32_t flags);
-
-// Fast path for large sudden leaks: a sharp imbalance together with falling
-// pressure at both ends of the line within a short look-back.
-struct RuptureOptions {
-  double window_s = 60.0;           // look-back
-  double leak_fraction = 0.10;      // imbalance over the look-back, fraction of nominal flow
-  // The metered shortfall (inflow - outflow, no line pack) must also have
-  // grown over the look-back by this share of the imbalance threshold: a
-  // rupture starves the outlet meter and draws on the inlet, while opening
-  // a valve at the outlet (a restart) makes the outlet meter read more, and
-  // the line-pack estimate can then show a large transient "imbalance".
-  double metered_share = 0.5;
-  // No rupture from a look-back that starts within this long after an
-  // operating change seen at the line ends (a step of inlet flow or end
-  // pressure, block to block): a restart after a shut-in (pump start, then
-  // the outlet valve opening) meets every other condition, the line-pack
-  // estimate lagging the pressure waves. A change the rupture itself causes
-  // is seen after the look-back that finds it has started.
-  double inhibit_after_change_s = 300.0;
-  double pressure_drop_pa = 1.0e5;  // drop at both end transmitters over the look-back
-  bool IsValid(std::string* why) const;
-};
 
 // Where a leak is, by pressure-gradient intersection (locate.h), refreshed
 // once per decision block while a leak is suspected or alarmed.
@@ -82,6 +64,7 @@ struct LeakLocation {
   double low_m = kNaN, high_m = kNaN;   // band at the locate options' coverage
   int landmark = -1;                    // nearest SegmentSpec::landmarks entry
   double landmark_offset_m = kNaN;      // chainage - landmark chainage
+  bool by_wave = false;                 // from pressure-wave arrival times (a rupture), else the gradients
 };
 
 enum class AlarmCommand : uint8_t {
@@ -110,6 +93,9 @@ struct SegmentTick {
   uint8_t point_dq = 0;              // union of PointDq flags of the segment's points
   int points_unusable = 0;           // points missing, stale, bad or failing a check
   bool rupture = false;              // fast-path condition this tick
+  RuptureStatus rupture_status;      // the fast path's signals (rupture.h)
+  bool transient = false;            // an operating change was seen at this tick's block end
+  bool leak_like = false;            // the ends show a leak's signature (not an operator's change)
   double friction_scale = 1.0;       // learnt measured/predicted friction (location)
   LeakLocation location;
   std::array<AlarmState, kAlarmTypeCount> alarms{};  // by AlarmType
@@ -131,6 +117,11 @@ class Monitor {
     DataQualityOptions data_quality;
     RuptureOptions rupture;
     GradientLocateOptions locate;
+    // Wave-arrival location of a rupture (locate.h), used when the ticks are
+    // at most max_sample_interval_s apart; the drop threshold is set per
+    // segment from the Joukowsky drop of half the rupture threshold.
+    OnsetOptions wave_onset = {10.0e3, 5, 2, 2, 5, 1.0};
+    WaveLocateOptions wave_locate;
     // Time constant of the low-pass filter on the cumulative imbalance ahead
     // of the decision, s.
     double decision_inventory_filter_s = 300.0;
@@ -142,9 +133,23 @@ class Monitor {
     // of it. The rupture fast path is not affected.
     double decision_settle_s = 900.0;
     // An operating change: block-to-block step of the inlet flow beyond this
-    // fraction of nominal flow, or of an end pressure beyond this, Pa.
+    // fraction of nominal flow, or of an end pressure beyond this, Pa. A
+    // step whose signature at the line ends is a leak's (rupture.h,
+    // RuptureStatus::LeakLike at transient_flow_fraction of nominal flow) is
+    // not an operating change: the leak's own consequences (a pump running
+    // out along its curve, pressures falling) must not hold the detectors.
     double transient_flow_fraction = 0.02;
     double transient_pressure_pa = 0.5e5;
+    // How long the detectors are held after an operating change: this many
+    // pressure-wave crossings of the segment (L / a), and at least
+    // transient_min_hold_s, at most transient_max_hold_s (the decision
+    // filter's settling bounds the useful hold from above).
+    double transient_hold_crossings = 6.0;
+    double transient_min_hold_s = 300.0;
+    double transient_max_hold_s = 900.0;
+    // Shut-in watch: the segment is blocked in when every boundary meter
+    // reads at most this fraction of nominal flow.
+    double shut_in_flow_fraction = 0.005;
     // One alarm of each type per segment (ISA-18.2 states, alarm.h). Leak and
     // rupture alarms latch: they need an acknowledgement even if the
     // condition goes away.
@@ -241,14 +246,16 @@ class Monitor {
     int leak_blocks = 0;
     double leak_p0 = 0.0, leak_p1 = 0.0, leak_q_in = 0.0;
     std::vector<double> leak_lateral;
+    std::vector<double> scratch_lateral;  // per meter, kg/s (rupture location)
+    std::vector<PressureSample> wave_in, wave_out;  // rupture look-back pressures (wave-arrival location)
+    double wave_speed_m_s = 0.0;      // L / sum(L_i / a_i) between the end transmitters
     GradientLocateInput locate_input;   // reused: laterals reserved at Init
-    // Rupture look-back ring.
-    std::vector<double> rup_t, rup_imb, rup_net, rup_p0, rup_p1;
-    double cum_net_kg = 0.0;  // metered in - out, integrated (rupture confirmation)
-    double last_change_s = -1e300;          // last operating change seen at the line ends
-    double change_episode_start_s = -1e300; // first change of the episode it belongs to
-    int rup_head = 0, rup_count = 0;
-    double cum_imbalance_kg = 0.0;
+    RuptureDetector rupture;
+    int rupture_ready = 0;            // 1 when the detector could be built (decision and end transmitters)
+    double leak_like_until_s = -1e300;  // a leak-like change was seen: no operating-change hold until then
+    double transient_hold_s = 900.0;  // per segment, from its wave crossing time
+    double inventory_offset_kg = 0.0; // steps of the inventory from a change of its sources
+    double shut_in_since_s = kNaN;    // blocked in since (NaN: flowing)
   };
   struct ForwardSink final : AlarmEventSink {
     AlarmEventRing<kEventRingSize>* ring = nullptr;
@@ -260,9 +267,11 @@ class Monitor {
   void EndBlock(SegmentRuntime& s, double t);
   void Locate(SegmentRuntime& s, double t, double inlet_kg_s, double p_first, double p_last, double n_samples,
               const double* lateral_kg_s, double leak_kg_s);
-  void UpdateRupture(SegmentRuntime& s, double t, bool valid);
+  void UpdateRupture(SegmentRuntime& s, double t, bool valid, double lateral_out_kg_s, double inlet_kg_s,
+                     double outlet_kg_s);
   double FrictionScale(const SegmentRuntime& s) const;
   void UpdateAlarms(SegmentRuntime& s, int index, double t);
+  bool LocateByWaves(SegmentRuntime& s, double t);
   void TickSegment(SegmentRuntime& s, double t, double dt);
   bool InitSegments(std::string* why);
 

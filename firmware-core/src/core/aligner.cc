@@ -36,6 +36,21 @@ std::string AlignerCounters::ToString() const {
   return o.str();
 }
 
+std::string PointDqNames(uint8_t dq) {
+  static const struct { uint8_t bit; const char* name; } kNames[] = {
+      {kDqOutOfRange, "out_of_range"}, {kDqRateOfChange, "rate_of_change"}, {kDqFlatline, "frozen"},
+      {kDqBadQuality, "bad_quality"},  {kDqStale, "stale"},                 {kDqMissing, "missing"},
+  };
+  std::string out;
+  for (const auto& n : kNames) {
+    if (dq & n.bit) {
+      if (!out.empty()) out += '|';
+      out += n.name;
+    }
+  }
+  return out;
+}
+
 bool DataQualityOptions::IsValid(std::string* why) const {
   if (!(flatline_s > 0.0)) {
     if (why) *why = "data quality: flatline_s must be positive";
@@ -43,6 +58,22 @@ bool DataQualityOptions::IsValid(std::string* why) const {
   }
   if (!(full_range_s > 0.0)) {
     if (why) *why = "data quality: full_range_s must be positive";
+    return false;
+  }
+  if (!(frozen_false_probability > 0.0 && frozen_false_probability < 0.5)) {
+    if (why) *why = "data quality: frozen_false_probability must be in (0, 0.5)";
+    return false;
+  }
+  if (!(frozen_min_change_share > 0.0 && frozen_min_change_share < 1.0)) {
+    if (why) *why = "data quality: frozen_min_change_share must be in (0, 1)";
+    return false;
+  }
+  if (!(frozen_learning_readings >= 10.0)) {
+    if (why) *why = "data quality: frozen_learning_readings must be at least 10";
+    return false;
+  }
+  if (frozen_min_repeats < 3) {
+    if (why) *why = "data quality: frozen_min_repeats must be at least 3";
     return false;
   }
   return true;
@@ -56,6 +87,34 @@ void Aligner::Reset(const Site& site, const DataQualityOptions& dq) {
   for (size_t i = 0; i < site.points.size(); ++i) staleness_s_[i] = site.points[i].staleness_s;
   tick_time_s_ = -1e300;
   counters_ = AlignerCounters{};
+}
+
+// The frozen verdict of DataQualityOptions for one good reading: learns the
+// share of readings that change the value, and calls the point frozen when a
+// point known to be noisy repeats one value more often than chance allows.
+uint8_t Aligner::Frozen(int point, HeldValue& h, bool changed, double v) const {
+  const bool flow = site_->points[point].kind == PointKind::kFlow;
+  if (changed) {
+    h.repeats = 0;
+  } else if (h.repeats < INT32_MAX) {
+    ++h.repeats;
+  }
+  // A zero flow is a closed meter or a low-flow cut-off: healthy, and not
+  // evidence about the meter's noise either way.
+  if (flow && v == 0.0) return 0;
+  if (h.learnt < INT32_MAX) ++h.learnt;
+  const double w = std::max(1.0 / h.learnt, 1.0 / dq_.frozen_learning_readings);
+  // Learn only from readings that are not themselves part of a suspected
+  // freeze, so that a frozen point does not teach itself to be quiet.
+  const double p = h.change_share;
+  const int needed = p >= dq_.frozen_min_change_share
+                         ? std::max(dq_.frozen_min_repeats,
+                                    static_cast<int>(std::ceil(std::log(dq_.frozen_false_probability) /
+                                                               std::log(std::max(1e-12, 1.0 - p)))))
+                         : INT32_MAX;
+  const bool frozen = h.learnt >= dq_.frozen_min_repeats && h.repeats >= needed;
+  if (!frozen) h.change_share += w * ((changed ? 1.0 : 0.0) - h.change_share);
+  return frozen ? kDqFlatline : 0;
 }
 
 FeedStatus Aligner::Feed(const Reading& r) {
@@ -83,6 +142,7 @@ FeedStatus Aligner::Feed(const Reading& r) {
   h.quality = r.quality;
   if (r.quality == Quality::kBad) {
     ++counters_.bad_quality;
+    h.dq = static_cast<uint8_t>((h.dq & kDqFlatline) | kDqBadQuality);
   } else {
     const PointSpec& spec = site_->points[r.point];
     const double v = spec.unit.ToSi(r.value);
@@ -96,13 +156,17 @@ FeedStatus Aligner::Feed(const Reading& r) {
       dq |= kDqRateOfChange;
       ++counters_.rate_of_change;
     }
-    h.dq = dq;
     if (dq == 0) {  // an implausible value never replaces the held one
-      if (!h.has_value || v != h.value_si) h.changed_s = r.time_s;
+      const bool changed = !h.has_value || v != h.value_si;
+      if (changed) h.changed_s = r.time_s;
+      dq = static_cast<uint8_t>(dq | Frozen(r.point, h, changed, v));
       h.value_si = v;
       h.time_s = r.time_s;
       h.has_value = true;
+    } else {
+      dq = static_cast<uint8_t>(dq | (h.dq & kDqFlatline));
     }
+    h.dq = dq;
   }
   if (r.time_s <= tick_time_s_) {
     ++counters_.late;

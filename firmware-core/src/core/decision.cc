@@ -32,6 +32,10 @@ bool DecisionOptions::IsValid(std::string* why) const {
   if (!(warmup_s >= 0.0)) return fail("decision: warm-up must not be negative");
   if (!(clip_sigmas >= 1.0)) return fail("decision: clip_sigmas must be at least 1");
   if (!(freeze_ratio > 0.0 && freeze_ratio < 1.0)) return fail("decision: freeze_ratio must be in (0, 1)");
+  if (!(transient_hold_s >= 0.0) || !std::isfinite(transient_hold_s))
+    return fail("decision: transient_hold_s must be zero or positive");
+  if (!(input_filter_s >= 0.0) || !std::isfinite(input_filter_s))
+    return fail("decision: input_filter_s must be zero or positive");
   return true;
 }
 
@@ -149,6 +153,7 @@ void SegmentDecision::ResetDetectors(int index, bool false_alarm) {
     d.change_point_s = block_start_s_;
     d.sum_kg_s = 0.0;
     d.blocks = 0;
+    d.cp_block_kg_s = has_prev_e_ ? prev_e_ : 0.0;
     zero_index_[i] = block_index_;
   }
   if (alarm_from_ != INT64_MAX) {
@@ -167,10 +172,40 @@ void SegmentDecision::ResetDetectors(int index, bool false_alarm) {
     else if (d.statistic > options_.freeze_ratio * d.h) any_suspect = true;
   }
   result_.leading = leading;
-  const DetectorStatus& lead = result_.detectors[leading];
-  result_.leak_rate_kg_s = lead.blocks > 0 ? lead.sum_kg_s / static_cast<double>(lead.blocks) : 0.0;
-  result_.change_point_s = lead.change_point_s;
+  EstimateRate(result_.detectors[leading]);
   result_.state = any_leak ? DecisionState::kLeak : (any_suspect ? DecisionState::kSuspect : DecisionState::kWatching);
+}
+
+// Leak rate since the detector's change point. Without an input filter, the
+// mean of (r - bias) over the blocks since then. With one (time constant
+// tau), the blocks are increments of the filtered cumulative imbalance F,
+// which lags C: C = F + tau dF/dt, so
+//     C(t) - C(t_cp) = sum (r - bias) dt_block + tau (e_now - e_cp),
+// with e the block rates r - bias at the last block and at the change
+// point. A naive mean reads a fresh leak low by tau (1 - exp(-dt / tau)) / dt
+// (81 % low at the first alarm was seen). The uncertainty adds the two
+// block rates' noise, tau sigma sqrt 2, to the sum's, sqrt(n) sigma_lr dt_block.
+void SegmentDecision::EstimateRate(const DetectorStatus& lead) {
+  result_.change_point_s = lead.change_point_s;
+  if (lead.blocks <= 0) {
+    result_.leak_rate_kg_s = 0.0;
+    result_.leak_rate_sigma_kg_s = 0.0;
+    return;
+  }
+  const double n = static_cast<double>(lead.blocks);
+  const double span_s = n * options_.block_s;
+  const double tau = options_.input_filter_s;
+  const double phi = result_.phi;
+  const double sigma = result_.sigma_kg_s;
+  const double sigma_lr = sigma * std::sqrt((1.0 + phi) / (1.0 - phi));
+  double change_kg = lead.sum_kg_s * options_.block_s;
+  double var = n * sigma_lr * sigma_lr * options_.block_s * options_.block_s;
+  if (tau > 0.0) {
+    change_kg += tau * (prev_e_ - lead.cp_block_kg_s);
+    var += 2.0 * tau * tau * sigma * sigma;
+  }
+  result_.leak_rate_kg_s = change_kg / span_s;
+  result_.leak_rate_sigma_kg_s = std::sqrt(var) / span_s;
 }
 
 void SegmentDecision::LearnOldestHeld() {
@@ -231,9 +266,9 @@ void SegmentDecision::EndBlock(double t) {
   block_start_s_ = t;
 
   // Transient: an inventory rate far outside its learnt spread.
-  if (inv_blocks_ > 30 && inv_var_ > 0.0 &&
+  if (!transient_veto_ && inv_blocks_ > 30 && inv_var_ > 0.0 &&
       std::fabs(inv_rate - inv_mean_) > kTransientSigmas * std::sqrt(inv_var_)) {
-    transient_until_s_ = t + kTransientHold_s;
+    transient_until_s_ = std::max(transient_until_s_, t + options_.transient_hold_s);
   }
   const bool reduced = t < transient_until_s_;
   result_.reduced_sensitivity = reduced;
@@ -315,6 +350,7 @@ void SegmentDecision::EndBlock(double t) {
       d.change_point_s = t;
       d.sum_kg_s = 0.0;
       d.blocks = 0;
+      d.cp_block_kg_s = e;
       zero_index_[i] = block_index_;
     } else {
       d.sum_kg_s += r - mean_;
@@ -326,9 +362,7 @@ void SegmentDecision::EndBlock(double t) {
     else if (d.statistic > options_.freeze_ratio * d.h) any_suspect = true;
   }
   result_.leading = leading;
-  const DetectorStatus& lead = result_.detectors[leading];
-  result_.leak_rate_kg_s = lead.blocks > 0 ? lead.sum_kg_s / static_cast<double>(lead.blocks) : 0.0;
-  result_.change_point_s = lead.change_point_s;
+  EstimateRate(result_.detectors[leading]);
   result_.state = any_leak ? DecisionState::kLeak : (any_suspect ? DecisionState::kSuspect : DecisionState::kWatching);
   // Learning lags the detectors (see the header). Skipping the blocks seen
   // while a detector is high, as this did at first, learns from a sample

@@ -446,6 +446,7 @@ void SegmentInventory::UpdateTemperatures(const Aligner& aligner, double t, doub
 const InventoryResult& SegmentInventory::Update(const Aligner& aligner, double t, double dt,
                                                 const double* meter_flow_kg_s) {
   result_.flags = 0;
+  result_.source_step_kg = 0.0;
   UpdatePressures(aligner, t);
   UpdateTemperatures(aligner, t, dt, meter_flow_kg_s);
 
@@ -514,15 +515,20 @@ const InventoryResult& SegmentInventory::Update(const Aligner& aligner, double t
     // Tank temperature: its own transmitter through the same first-order
     // filter as the line's, else the line's inlet temperature.
     double temp_k = have_t ? gauge_t_filtered_[0] : kWallReferenceTemperature_k;
+    double substitute_k = kNaN;  // the temperature used until now, when the own thermometer takes over
     if (tk.temperature_point >= 0 && aligner.held(tk.temperature_point).has_value) {
       const double raw = aligner.value(tk.temperature_point);
+      if (!tank_t_init_[k] && update_count_ > 1) substitute_k = temp_k;
       tank_t_filtered_[k] = tank_t_init_[k] ? raw + filter_decay_ * (tank_t_filtered_[k] - raw) : raw;
       tank_t_init_[k] = 1;
       temp_k = tank_t_filtered_[k];
+    } else if (tk.temperature_point >= 0) {
+      result_.flags |= kInvTankTemperatureSubstituted;
     }
     FluidState st_tank;
     if (!table_->Evaluate(p_atm_, temp_k, &st_tank)) result_.flags |= kInvOutsideFluidTable;
     const double rho = st_tank.density_kg_m3;
+    if (std::isfinite(substitute_k)) result_.source_step_kg += vol * (rho - table_->Density(p_atm_, substitute_k));
     tank += vol * rho;
     dm_dlevel_[k] = dvdl * rho;
     var_p += (dm_dlevel_[k] * sigma_level_[k]) * (dm_dlevel_[k] * sigma_level_[k]);

@@ -6,8 +6,14 @@
 #include <sstream>
 
 #include "holdfast/arl.h"
+#include "holdfast/pipe.h"
 
 namespace holdfast {
+namespace {
+// Temperature at which the wave speeds (rupture signal, transient hold) are
+// evaluated; only their few-percent temperature dependence is lost.
+constexpr double kWaveReferenceTemperature_k = 288.15;
+}  // namespace
 
 const char* SegmentStatusName(SegmentStatus s) {
   switch (s) {
@@ -15,6 +21,7 @@ const char* SegmentStatusName(SegmentStatus s) {
     case SegmentStatus::kNormal: return "normal";
     case SegmentStatus::kDegraded: return "degraded";
     case SegmentStatus::kUnavailable: return "unavailable";
+    case SegmentStatus::kShutIn: return "shut_in";
   }
   return "?";
 }
@@ -29,14 +36,16 @@ std::string SegmentFlagNames(uint32_t flags) {
       {kInvLevelStale, "level_stale"},
       {kInvLevelOutsideTable, "level_outside_strapping_table"},
       {kInvOutsideFluidTable, "state_outside_fluid_table"},
+      {kInvTankTemperatureSubstituted, "tank_temperature_substituted"},
       {kSegMeterMissing, "meter_missing"},
       {kSegMeterStale, "meter_stale"},
       {kSegMeterConditions, "meter_conditions_missing"},
+      {kSegPointSuspect, "point_suspect"},
   };
   std::string out;
   for (const auto& n : kNames) {
     if (flags & n.bit) {
-      if (!out.empty()) out += ',';
+      if (!out.empty()) out += '|';
       out += n.name;
     }
   }
@@ -60,16 +69,6 @@ std::string SegmentTick::ToString() const {
   return s;
 }
 
-bool RuptureOptions::IsValid(std::string* why) const {
-  auto fail = [&](const char* m) { if (why) *why = m; return false; };
-  if (!(window_s > 0.0)) return fail("rupture: window_s must be positive");
-  if (!(leak_fraction > 0.0)) return fail("rupture: leak_fraction must be positive");
-  if (!(pressure_drop_pa > 0.0)) return fail("rupture: pressure_drop_pa must be positive");
-  if (!(metered_share >= 0.0 && metered_share <= 1.0)) return fail("rupture: metered_share must be in [0, 1]");
-  if (!(inhibit_after_change_s >= 0.0)) return fail("rupture: inhibit_after_change_s must be zero or positive");
-  return true;
-}
-
 bool Monitor::Options::IsValid(std::string* why) const {
   if (!(transient_flow_fraction > 0.0) || !(transient_pressure_pa > 0.0)) {
     if (why) *why = "transient thresholds must be positive";
@@ -81,6 +80,15 @@ bool Monitor::Options::IsValid(std::string* why) const {
   }
   if (!(decision_inventory_filter_s > 0.0)) {
     if (why) *why = "decision_inventory_filter_s must be positive";
+    return false;
+  }
+  if (!(transient_hold_crossings >= 0.0) || !(transient_min_hold_s >= 0.0) ||
+      !(transient_max_hold_s >= transient_min_hold_s) || !std::isfinite(transient_max_hold_s)) {
+    if (why) *why = "transient hold: crossings and minimum must be zero or positive, maximum at least the minimum";
+    return false;
+  }
+  if (!(shut_in_flow_fraction >= 0.0 && shut_in_flow_fraction < 0.5)) {
+    if (why) *why = "shut_in_flow_fraction must be in [0, 0.5)";
     return false;
   }
   return decision.IsValid(why) && data_quality.IsValid(why) && rupture.IsValid(why) && locate.IsValid(why) &&
@@ -207,8 +215,22 @@ bool Monitor::InitSegments(std::string* why) {
     s.standard_density_kg_m3 =
         FluidDensity(site.fluids[spec.fluid], site.standard_pressure_pa, site.standard_temperature_k);
     s.decision_enabled = std::isfinite(spec.nominal_flow_kg_s) && spec.nominal_flow_kg_s > 0.0;
-    if (s.decision_enabled &&
-        !s.decision.Init(options_.decision, spec.nominal_flow_kg_s, &thresholds_, &reason)) {
+    // Reference state for the wave speeds: 10 bar absolute at the reference
+    // temperature of the pipe wall (only B = A / a and L / a depend on it).
+    FluidState ref;
+    s.table->Evaluate(10.0e5, kWaveReferenceTemperature_k, &ref);
+    const double bulk_pa = ref.ddensity_dp_kg_m3_pa > 0.0 ? ref.density_kg_m3 / ref.ddensity_dp_kg_m3_pa : 0.0;
+    double crossing_s = 0.0;
+    for (const PipeSection& sec : spec.sections) {
+      const double a = bulk_pa > 0.0 ? WaveSpeed(bulk_pa, ref.density_kg_m3, sec) : 0.0;
+      if (a > 0.0) crossing_s += sec.length_m / a;
+    }
+    s.transient_hold_s = std::clamp(options_.transient_hold_crossings * crossing_s, options_.transient_min_hold_s,
+                                    options_.transient_max_hold_s);
+    DecisionOptions dopt = options_.decision;
+    dopt.input_filter_s = options_.decision_inventory_filter_s;
+    dopt.transient_hold_s = s.transient_hold_s;
+    if (s.decision_enabled && !s.decision.Init(dopt, spec.nominal_flow_kg_s, &thresholds_, &reason)) {
       if (why) *why = "segment " + spec.id + ": " + reason;
       return false;
     }
@@ -222,6 +244,7 @@ bool Monitor::InitSegments(std::string* why) {
     }
     s.block_lateral.assign(spec.meters.size(), 0.0);
     s.leak_lateral.assign(spec.meters.size(), 0.0);
+    s.scratch_lateral.assign(spec.meters.size(), 0.0);
     // The segment's own points, once each (data-quality summary).
     auto add_point = [&s](int p) {
       if (p >= 0 && std::find(s.points.begin(), s.points.end(), p) == s.points.end()) s.points.push_back(p);
@@ -231,12 +254,25 @@ bool Monitor::InitSegments(std::string* why) {
     for (const GaugeSpec& g : spec.temperature_gauges) add_point(g.point);
     for (const TankSpec& tk : spec.tanks) { add_point(tk.level_point); add_point(tk.temperature_point); }
     s.locate_input.laterals.reserve(spec.meters.size());
-    const int ring = std::max(2, static_cast<int>(std::ceil(options_.rupture.window_s / site.tick_s)) + 1);
-    s.rup_t.assign(ring, 0.0);
-    s.rup_imb.assign(ring, 0.0);
-    s.rup_net.assign(ring, 0.0);
-    s.rup_p0.assign(ring, 0.0);
-    s.rup_p1.assign(ring, 0.0);
+    s.rupture_ready = 0;
+    if (s.decision_enabled && s.p_first >= 0 && s.p_first != s.p_last && bulk_pa > 0.0) {
+      const double sigma_out = site.points[spec.pressure_gauges[s.p_last].point].random_sigma;
+      if (!s.rupture.Init(options_.rupture, spec, site.tick_s, ref.density_kg_m3, bulk_pa, sigma_out, &reason)) {
+        if (why) *why = "segment " + spec.id + ": " + reason;
+        return false;
+      }
+      s.rupture_ready = 1;
+      s.wave_in.assign(static_cast<size_t>(s.rupture.capacity()), PressureSample{});
+      s.wave_out.assign(static_cast<size_t>(s.rupture.capacity()), PressureSample{});
+      const double x0 = spec.pressure_gauges[s.p_first].chainage_m, x1 = spec.pressure_gauges[s.p_last].chainage_m;
+      double start = 0.0, travel_s = 0.0;
+      for (const PipeSection& sec : spec.sections) {
+        const double lo = std::max(start, x0), hi = std::min(start + sec.length_m, x1);
+        start += sec.length_m;
+        if (hi > lo) travel_s += (hi - lo) / WaveSpeed(bulk_pa, ref.density_kg_m3, sec);
+      }
+      s.wave_speed_m_s = travel_s > 0.0 ? (x1 - x0) / travel_s : 0.0;
+    }
   }
   started_ = false;
   ticks_ = 0;
@@ -268,7 +304,10 @@ void Monitor::TickSegment(SegmentRuntime& s, double t, double dt) {
   const SegmentSpec& spec = *s.spec;
   SegmentTick& out = s.tick;
   uint32_t flags = 0;
-  double in = 0.0, outflow = 0.0;
+  double in = 0.0, outflow = 0.0, lateral_out = 0.0, inlet_end = 0.0, outlet_end = 0.0;
+  bool all_shut = true;
+  const double shut_limit = options_.shut_in_flow_fraction *
+                            (std::isfinite(spec.nominal_flow_kg_s) ? spec.nominal_flow_kg_s : 0.0);
   for (size_t m = 0; m < spec.meters.size(); ++m) {
     const MeterSpec& ms = spec.meters[m];
     const HeldValue& h = aligner_.held(ms.point);
@@ -300,13 +339,48 @@ void Monitor::TickSegment(SegmentRuntime& s, double t, double dt) {
     s.flows[m].flow_kg_s = is_in ? q : -q;
     s.signed_flow[m] = s.flows[m].flow_kg_s;
     if (is_in) in += q; else outflow += q;
+    switch (ms.role) {
+      case MeterRole::kInlet: inlet_end += q; break;
+      case MeterRole::kOutlet: outlet_end += q; break;
+      case MeterRole::kDelivery: lateral_out += q; break;
+      case MeterRole::kInjection: lateral_out -= q; break;
+    }
+    all_shut = all_shut && std::fabs(q) <= shut_limit;
   }
   const InventoryResult& inv = s.inventory.Update(aligner_, t, dt, s.signed_flow.data());
   flags |= inv.flags;
+  // A change of an inventory source (a tank's own thermometer taking over
+  // from the line's) steps the computed inventory without any mass moving:
+  // the balance sees the inventory less the sum of those steps.
+  s.inventory_offset_kg += inv.source_step_kg;
   const bool unavailable = (flags & (kSegMeterMissing | kSegMeterStale | kInvPressureMissing |
                                      kInvTemperatureMissing | kInvLevelMissing)) != 0;
-  s.balance.Step(t, !unavailable, s.flows.data(), static_cast<int>(s.flows.size()), inv.total_kg(),
-                 inv.sigma_pressure_kg, inv.sigma_temperature_kg, s.inventory.temperature_filter_decay());
+  s.balance.Step(t, !unavailable, s.flows.data(), static_cast<int>(s.flows.size()),
+                 inv.total_kg() - s.inventory_offset_kg, inv.sigma_pressure_kg, inv.sigma_temperature_kg,
+                 s.inventory.temperature_filter_decay());
+  out.time_s = t;
+  out.inflow_kg_s = in;
+  out.outflow_kg_s = outflow;
+
+  // Data quality of the segment's own points: excluded readings and frozen
+  // verdicts make the segment degraded (and, lasting, raise data quality);
+  // only a missing or stale boundary input makes it unavailable.
+  uint8_t dq = 0;
+  int unusable = 0;
+  for (int p : s.points) {
+    const uint8_t d = aligner_.Dq(p, t);
+    dq |= d;
+    if (d != 0) ++unusable;
+  }
+  out.point_dq = dq;
+  out.points_unusable = unusable;
+  if (dq & (kDqOutOfRange | kDqRateOfChange | kDqFlatline | kDqBadQuality)) flags |= kSegPointSuspect;
+
+  // The rupture fast path runs first: its leak signature at the line ends
+  // keeps the leak's own consequences from being taken for an operating
+  // change by the decision below and by the block-end step test.
+  const bool valid = !unavailable && s.balance.has_difference();
+  UpdateRupture(s, t, valid, lateral_out, inlet_end, outlet_end);
 
   if (s.decision_enabled) {
     // The decision sees the cumulative imbalance C = sum(in - out) dt - (M - M0)
@@ -315,7 +389,7 @@ void Monitor::TickSegment(SegmentRuntime& s, double t, double dt) {
     // once, not differenced, and the filter shrinks it, while a lasting
     // shortfall keeps its full slope. Inventory itself is never filtered, so
     // steady filling or emptying adds no lag.
-    const bool ok = !unavailable && s.balance.has_difference();
+    const bool ok = valid;
     double imbalance_kg = 0.0;
     if (ok) {
       if (!s.filter_running) {
@@ -336,13 +410,20 @@ void Monitor::TickSegment(SegmentRuntime& s, double t, double dt) {
     }
     const bool settled = ok && t - s.filter_start_s >= options_.decision_settle_s;
     const double inv_rate = settled ? s.balance.inventory_rate_kg_s() : 0.0;
+    // Blocked in, nobody operates the line: once the shut-in's own
+    // transient is over, any inventory rate is thermal (predicted) or a
+    // leak, never an operating change.
+    if (all_shut && shut_limit > 0.0) {
+      if (!(s.shut_in_since_s <= t)) s.shut_in_since_s = t;
+    } else {
+      s.shut_in_since_s = kNaN;
+    }
+    const bool shut_in_settled = t - s.shut_in_since_s >= s.transient_hold_s;
+    s.decision.SetTransientVeto(t < s.leak_like_until_s || shut_in_settled);
     s.decision.Step(t, dt, settled, settled ? imbalance_kg : 0.0, inv_rate);
     out.decision = s.decision.result();
   }
-  out.time_s = t;
   out.flags = flags;
-  out.inflow_kg_s = in;
-  out.outflow_kg_s = outflow;
   out.linepack_kg = inv.linepack_kg;
   out.tank_kg = inv.tank_kg;
   out.inventory_kg = inv.total_kg();
@@ -356,25 +437,17 @@ void Monitor::TickSegment(SegmentRuntime& s, double t, double dt) {
     out.status = SegmentStatus::kUnavailable;
   } else if (flags != 0) {
     out.status = SegmentStatus::kDegraded;
+  } else if (all_shut && shut_limit > 0.0) {
+    out.status = SegmentStatus::kShutIn;
   } else if (out.window_count > 0 && !out.windows[0].full) {
     out.status = SegmentStatus::kStarting;
   } else {
     out.status = SegmentStatus::kNormal;
   }
 
-  // Data quality of the segment's own points.
-  uint8_t dq = 0;
-  int unusable = 0;
-  for (int p : s.points) {
-    dq |= aligner_.Dq(p, t);
-    if (!aligner_.Usable(p, t)) ++unusable;
-  }
-  out.point_dq = dq;
-  out.points_unusable = unusable;
-
   // Block averages of the end pressures and flows for location; the block
   // clock runs on valid ticks, like the decision stage's.
-  const bool valid = !unavailable && s.balance.has_difference();
+  out.transient = false;
   if (s.decision_enabled && s.p_first >= 0 && valid) {
     s.block_dt += dt;
     s.block_p_first += aligner_.value(spec.pressure_gauges[s.p_first].point) * dt;
@@ -389,7 +462,6 @@ void Monitor::TickSegment(SegmentRuntime& s, double t, double dt) {
     s.block_dt = s.block_p_first = s.block_p_last = s.block_in = 0.0;
     std::fill(s.block_lateral.begin(), s.block_lateral.end(), 0.0);
   }
-  UpdateRupture(s, t, valid);
   out.friction_scale = s.friction_scale;
   UpdateAlarms(s, static_cast<int>(&s - segments_.data()), t);
 }
@@ -404,11 +476,12 @@ void Monitor::EndBlock(SegmentRuntime& s, double t) {
   if (s.have_prev_block) {
     const double dq = std::fabs(q_in - s.prev_block_q_in);
     const double dp = std::max(std::fabs(p0 - s.prev_block_p0), std::fabs(p1 - s.prev_block_p1));
-    if (dq > options_.transient_flow_fraction * s.spec->nominal_flow_kg_s || dp > options_.transient_pressure_pa) {
-      s.decision.MarkTransient(t);
-      // Changes closer together than the rupture inhibit are one episode.
-      if (t - s.last_change_s >= options_.rupture.inhibit_after_change_s) s.change_episode_start_s = t;
-      s.last_change_s = t;
+    // A step with a leak's signature at the line ends is the leak's own
+    // doing, not an operator's: the detectors go on.
+    if ((dq > options_.transient_flow_fraction * s.spec->nominal_flow_kg_s || dp > options_.transient_pressure_pa) &&
+        !(t < s.leak_like_until_s)) {
+      s.decision.MarkTransient(t, s.transient_hold_s);
+      s.tick.transient = true;
     }
   }
   s.have_prev_block = true;
@@ -420,6 +493,7 @@ void Monitor::EndBlock(SegmentRuntime& s, double t) {
                      !d.reduced_sensitivity;
   if (quiet) {
     s.tick.location.valid = false;
+    s.tick.location.by_wave = false;
     s.leak_blocks = 0;
     s.leak_p0 = s.leak_p1 = s.leak_q_in = 0.0;
     std::fill(s.leak_lateral.begin(), s.leak_lateral.end(), 0.0);
@@ -433,8 +507,11 @@ void Monitor::EndBlock(SegmentRuntime& s, double t) {
     for (size_t m = 0; m < s.leak_lateral.size(); ++m) s.leak_lateral[m] += s.block_lateral[m];
     const double k = 1.0 / s.leak_blocks;
     for (size_t m = 0; m < s.leak_lateral.size(); ++m) s.block_lateral[m] = s.leak_lateral[m] * k;
-    Locate(s, t, s.leak_q_in * k, s.leak_p0 * k, s.leak_p1 * k, n * s.leak_blocks, s.block_lateral.data(),
-           std::max(d.leak_rate_kg_s, 0.0));
+    // A rupture located by its pressure waves keeps that location: the
+    // gradients of a line still in its transient say less.
+    if (!s.tick.location.by_wave)
+      Locate(s, t, s.leak_q_in * k, s.leak_p0 * k, s.leak_p1 * k, n * s.leak_blocks, s.block_lateral.data(),
+             std::max(d.leak_rate_kg_s, 0.0));
   }
   if (quiet) {
     Locate(s, t, q_in, p0, p1, n, s.block_lateral.data(), 0.0);
@@ -549,6 +626,7 @@ void Monitor::Locate(SegmentRuntime& s, double t, double inlet_kg_s, double p_fi
   LeakLocation& out = s.tick.location;
   out.time_s = t;
   out.valid = loc.found;
+  out.by_wave = false;
   if (loc.found) {
     out.chainage_m = loc.chainage_m;
     out.low_m = loc.chainage_low_m;
@@ -559,62 +637,90 @@ void Monitor::Locate(SegmentRuntime& s, double t, double inlet_kg_s, double p_fi
   }
 }
 
-void Monitor::UpdateRupture(SegmentRuntime& s, double t, bool valid) {
+void Monitor::UpdateRupture(SegmentRuntime& s, double t, bool valid, double lateral_out_kg_s, double inlet_kg_s,
+                            double outlet_kg_s) {
   SegmentTick& out = s.tick;
   out.rupture = false;
-  if (!s.decision_enabled || s.p_first < 0 || s.p_first == s.p_last) return;
+  out.leak_like = false;
+  if (!s.rupture_ready) return;
   if (!valid) {
-    s.rup_count = 0;
+    s.rupture.Restart();
     return;
   }
-  // Time since the previous tick in the ring (the slot before head is the
-  // last one written only once the ring is full: reading it earlier, as
-  // this did, took a stale time after every gap and integrated the first
-  // residual over the whole gap).
-  const double since = s.rup_count ? t - s.rup_t[(s.rup_head + s.rup_count - 1) % s.rup_t.size()] : 0.0;
-  s.cum_imbalance_kg += s.balance.residual_kg_s() * since;
-  s.cum_net_kg += (out.inflow_kg_s - out.outflow_kg_s) * since;
-  const int size = static_cast<int>(s.rup_t.size());
-  const int slot = (s.rup_head + s.rup_count) % size;
-  if (s.rup_count == size) s.rup_head = (s.rup_head + 1) % size; else ++s.rup_count;
-  s.rup_t[slot] = t;
-  s.rup_imb[slot] = s.cum_imbalance_kg;
-  s.rup_net[slot] = s.cum_net_kg;
-  s.rup_p0[slot] = aligner_.value(s.spec->pressure_gauges[s.p_first].point);
-  s.rup_p1[slot] = aligner_.value(s.spec->pressure_gauges[s.p_last].point);
-  const int old = s.rup_head;
-  const double span = t - s.rup_t[old];
-  if (span < 0.5 * options_.rupture.window_s) return;
-  const double rate = (s.cum_imbalance_kg - s.rup_imb[old]) / span;
-  // Growth of the metered shortfall: its mean over the look-back against its
-  // value at the start of it.
-  const double net_then = s.rup_count >= 2 ? (s.rup_net[(old + 1) % size] - s.rup_net[old]) /
-                                                 std::max(1e-9, s.rup_t[(old + 1) % size] - s.rup_t[old])
-                                           : 0.0;
-  const double net_mean = (s.cum_net_kg - s.rup_net[old]) / span;
-  const double drop0 = s.rup_p0[old] - s.rup_p0[slot];
-  const double drop1 = s.rup_p1[old] - s.rup_p1[slot];
-  const double threshold = options_.rupture.leak_fraction * s.spec->nominal_flow_kg_s;
-  const double window_start = s.rup_t[old];
-  // Inhibited while an episode of operating changes that began before this
-  // look-back is still going on (its last change recent): a change the
-  // rupture itself causes starts an episode inside the look-back.
-  const bool inhibited = s.change_episode_start_s <= window_start &&
-                         window_start - s.last_change_s < options_.rupture.inhibit_after_change_s;
-  out.rupture = !inhibited && rate > threshold && net_mean - net_then >= options_.rupture.metered_share * threshold &&
-                drop0 > options_.rupture.pressure_drop_pa && drop1 > options_.rupture.pressure_drop_pa;
+  RuptureInput in;
+  in.inflow_kg_s = inlet_kg_s;
+  in.outflow_kg_s = outlet_kg_s;
+  in.lateral_out_kg_s = lateral_out_kg_s;
+  in.p_inlet_pa = aligner_.value(s.spec->pressure_gauges[s.p_first].point);
+  in.p_outlet_pa = aligner_.value(s.spec->pressure_gauges[s.p_last].point);
+  in.residual_kg_s = s.balance.residual_kg_s();
+  const RuptureStatus& st = s.rupture.Step(t, in);
+  out.rupture_status = st;
+  out.rupture = st.rupture;
+  // A leak-like change at both ends, at the size of an operating-change
+  // step: the decision is not held for it for the next two blocks.
+  if (st.LeakLike(options_.transient_flow_fraction * s.spec->nominal_flow_kg_s)) {
+    out.leak_like = true;
+    s.leak_like_until_s = t + 2.0 * options_.decision.block_s;
+  }
   if (out.rupture && !alarms_[static_cast<size_t>(&s - segments_.data()) * kAlarmTypeCount +
                               static_cast<size_t>(AlarmType::kRupture)].condition_active()) {
-    // Locate at once on the current state (one evaluation, at detection).
-    double lateral[64] = {0};
-    const size_t nm = std::min<size_t>(s.signed_flow.size(), 64);
-    double q_in = 0.0;
-    for (size_t m = 0; m < nm; ++m) {
-      lateral[m] = s.signed_flow[m];
-      if (s.spec->meters[m].role == MeterRole::kInlet) q_in += s.signed_flow[m];
+    // Locate at once on the current state (one evaluation, at detection),
+    // with the wave estimate of the leak rate.
+    // By the pressure-wave arrival times where the ticks are fast enough,
+    // else by the gradients.
+    if (!LocateByWaves(s, t)) {
+      for (size_t m = 0; m < s.signed_flow.size(); ++m) s.scratch_lateral[m] = s.signed_flow[m];
+      Locate(s, t, inlet_kg_s, in.p_inlet_pa, in.p_outlet_pa, 1.0, s.scratch_lateral.data(),
+             std::max(st.estimate_kg_s, st.balance_kg_s));
     }
-    Locate(s, t, q_in, s.rup_p0[slot], s.rup_p1[slot], 1.0, lateral, rate);
   }
+}
+
+// Rupture location from the arrival of its negative pressure wave at the
+// two end transmitters (locate.h: DetectPressureDrop, LocateByWaveArrival),
+// on the look-back's tick values. The drop threshold is a quarter of the
+// Joukowsky drop of half the rupture threshold, dP = (q / 2) / B (Joukowsky
+// 1898, in mass-flow form), and at least five transmitter sigmas.
+bool Monitor::LocateByWaves(SegmentRuntime& s, double t) {
+  // A tank inside the segment holds the outlet pressure nearly constant:
+  // the wave hardly shows there and its pick comes late (seen as leaks at
+  // 4 km located at 26 km on the demo line). Gradients then.
+  if (!(s.wave_speed_m_s > 0.0) || !(site_->tick_s <= options_.wave_onset.max_sample_interval_s) ||
+      !s.spec->tanks.empty())
+    return false;
+  const int n = s.rupture.EndPressures(s.wave_in.data(), s.wave_out.data());
+  const SegmentSpec& spec = *s.spec;
+  const PointSpec& p0 = site_->points[spec.pressure_gauges[s.p_first].point];
+  const PointSpec& p1 = site_->points[spec.pressure_gauges[s.p_last].point];
+  OnsetOptions o = options_.wave_onset;
+  const double joukowsky_pa =
+      0.5 * s.rupture.threshold_kg_s() / std::max(s.rupture.b_inlet_m_s(), s.rupture.b_outlet_m_s());
+  o.drop_threshold_pa = std::max({0.25 * joukowsky_pa, 5.0 * p0.random_sigma, 5.0 * p1.random_sigma});
+  const OnsetResult a = DetectPressureDrop(s.wave_in.data(), n, o);
+  const OnsetResult b = DetectPressureDrop(s.wave_out.data(), n, o);
+  if (!a.found || !b.found) return false;
+  WaveArrivals w;
+  w.inlet_chainage_m = spec.pressure_gauges[s.p_first].chainage_m;
+  w.outlet_chainage_m = spec.pressure_gauges[s.p_last].chainage_m;
+  w.wave_speed_m_s = s.wave_speed_m_s;
+  w.inlet_arrival_s = a.arrival_s;
+  w.outlet_arrival_s = b.arrival_s;
+  // Half a tick of picking error at each end (uniform: tick / sqrt 12).
+  w.inlet_sigma_s = w.outlet_sigma_s = site_->tick_s / std::sqrt(12.0);
+  const WaveLocation loc = LocateByWaveArrival(w, options_.wave_locate);
+  if (!loc.found || loc.clamped) return false;
+  LeakLocation& out = s.tick.location;
+  out.valid = true;
+  out.by_wave = true;
+  out.time_s = t;
+  out.chainage_m = loc.chainage_m;
+  out.low_m = loc.chainage_low_m;
+  out.high_m = loc.chainage_high_m;
+  const NearestLandmarkResult lm = NearestLandmark(spec.landmarks, loc.chainage_m);
+  out.landmark = lm.found ? lm.index : -1;
+  out.landmark_offset_m = lm.found ? lm.signed_distance_m : kNaN;
+  return true;
 }
 
 void Monitor::UpdateAlarms(SegmentRuntime& s, int index, double t) {
@@ -626,15 +732,36 @@ void Monitor::UpdateAlarms(SegmentRuntime& s, int index, double t) {
     if (d.leading >= 0) {
       const DetectorStatus& lead = d.detectors[d.leading];
       ev.leak_rate_kg_s = d.leak_rate_kg_s;
+      ev.leak_rate_sigma_kg_s = d.leak_rate_sigma_kg_s;
+      ev.detector_target_kg_s = lead.target_kg_s;
       ev.statistic = lead.statistic;
       ev.threshold = lead.h;
       // Time since the change point (NaN before the detector has one).
       ev.window_s = lead.change_point_s > 0.0 ? t - lead.change_point_s : kNaN;
     }
-    if (out.location.valid) ev.location_m = out.location.chainage_m;
+    if (out.location.valid) {
+      ev.location_m = out.location.chainage_m;
+      ev.location_low_m = out.location.low_m;
+      ev.location_high_m = out.location.high_m;
+    }
     a[static_cast<int>(AlarmType::kLeak)].Update(t, d.state == DecisionState::kLeak, ev);
     AlarmEvidence rv = ev;
-    rv.SetDetail("pressure falling at both ends");
+    const RuptureStatus& rs = out.rupture_status;
+    if (out.rupture || rs.span_s > 0.0) {
+      // The larger of the wave estimate (which sees mostly the inlet's
+      // half on a line whose outlet is a tank) and the compensated balance
+      // over the look-back.
+      rv.leak_rate_kg_s = std::max(rs.estimate_kg_s, rs.balance_kg_s);
+      rv.leak_rate_sigma_kg_s = kNaN;
+      rv.detector_target_kg_s = s.rupture_ready ? s.rupture.threshold_kg_s() : kNaN;
+      rv.statistic = rs.wave_in_kg_s;
+      rv.threshold = s.rupture_ready ? options_.rupture.wave_share * s.rupture.threshold_kg_s() : kNaN;
+      rv.window_s = rs.span_s;
+      char buf[AlarmEvidence::kDetailSize];
+      std::snprintf(buf, sizeof buf, "waves in %.1f out %.1f kg/s, metered %.1f", rs.wave_in_kg_s,
+                    rs.wave_out_kg_s, rs.metered_kg_s);
+      rv.SetDetail(buf);
+    }
     a[static_cast<int>(AlarmType::kRupture)].Update(t, out.rupture, rv);
   }
   // At start-up points report one by one: missing data is not a fault until
@@ -654,6 +781,26 @@ void Monitor::UpdateAlarms(SegmentRuntime& s, int index, double t) {
   }
   AlarmEvidence dq;
   dq.statistic = out.points_unusable;
+  if (out.points_unusable > 0) {
+    // The points and their reasons, as many as fit ("MB-TT-302 frozen; ...").
+    char buf[AlarmEvidence::kDetailSize];
+    size_t used = 0;
+    buf[0] = '\0';
+    for (int p : s.points) {
+      const uint8_t d = aligner_.Dq(p, t);
+      if (d == 0) continue;
+      const char* reason = (d & kDqMissing) ? "missing" : (d & kDqStale) ? "stale" : (d & kDqFlatline) ? "frozen"
+                           : (d & kDqBadQuality) ? "bad" : (d & kDqOutOfRange) ? "out_of_range" : "rate_of_change";
+      const int n = std::snprintf(buf + used, sizeof buf - used, "%s%s %s", used ? "; " : "",
+                                  site_->points[p].id.c_str(), reason);
+      if (n < 0 || used + static_cast<size_t>(n) >= sizeof buf) {
+        buf[used] = '\0';
+        break;
+      }
+      used += static_cast<size_t>(n);
+    }
+    dq.SetDetail(buf);
+  }
   a[static_cast<int>(AlarmType::kDataQuality)].Update(
       t, settled && t - s.dq_since_s >= kDataQualityOnDelay_s, dq);
   AlarmEvidence un;

@@ -1,0 +1,138 @@
+// Fast path for large sudden leaks (ruptures), for any line: no fixed
+// pressure drop, no blanket inhibit after operating changes.
+//
+// The signal is the characteristic invariant at each end of the line. Along
+// the characteristics of an elastic liquid pipe (Wylie & Streeter, Fluid
+// Transients in Systems, 1993, ch. 3, compatibility equations written for
+// the mass flow; equation numbers not cited, from memory)
+//     C+:  dm + B dP = 0,   C-:  dm - B dP = 0,   B = A / a,
+// so a wave travelling towards an end carries dm_i = -B dP_i (upstream end)
+// or dm_i = B dP_i (downstream end), and whatever the boundary does with it
+// (a pump on its curve, a control valve, a tank, a flow controller), the
+// reflected wave satisfies the other invariant. Adding the two, at the inlet
+//     s_in  =  dm_in  - B dP_in  = 2 dm_i,
+// and at the outlet
+//     s_out = -dm_out - B dP_out = 2 |dm_i|,
+// where m is the mass flow in the direction of the line at that end. A leak
+// of rate q sends a drop of dm_i = q / 2 towards each end: both s grow by
+// about q, whether the pump runs out along its curve, a valve holds the
+// flow, or a tank holds the pressure. An operating change made at one end
+// leaves that end's s unchanged (the wave it sends satisfies the invariant
+// there), so it cannot look like a leak at both ends at once. A metered
+// delivery opening mid-line is hydraulically a leak; its metered change is
+// subtracted from both.
+//
+// A rupture is raised when, over the look-back (window_s), all of:
+//   * s_in (less the change in metered laterals) grew by wave_share x the
+//     threshold (leak_fraction x nominal flow);
+//   * at the outlet: s_out likewise when the outlet meters measure the pipe
+//     end (no tank inside the segment); otherwise the outlet pressure fell
+//     by pressure_sigmas standard deviations of its look-back difference;
+//   * the metered shortfall (inflow - outflow) grew by metered_share x the
+//     threshold (a pump trip or a valve opening at the outlet lowers it);
+//   * the line was quiet before the look-back: between reference_s ago and
+//     the look-back's start, neither the inlet's signal (less laterals) nor
+//     the metered shortfall moved by more than quiet_share x the threshold.
+//     On a long, friction-dominated line the invariant fades within the
+//     wave's travel (friction damps it), and the recovery after an
+//     operating change (the inflow after a pump slowdown, the line filling
+//     after a restart) can look like a leak at the inlet. A sudden leak
+//     comes out of a quiet line; one within reference_s of an operating
+//     change is left to the decision.
+//   * the compensated imbalance over the look-back (the balance residual,
+//     line pack and tanks included) is at least balance_share x the
+//     threshold (a restart into a tank inside the segment fills the tank).
+// Values at both ends of the look-back are means over average_s.
+#pragma once
+
+#include <string>
+#include <vector>
+
+#include "holdfast/locate.h"
+#include "holdfast/site.h"
+
+namespace holdfast {
+
+struct RuptureOptions {
+  double window_s = 60.0;       // look-back, s
+  double reference_s = 180.0;   // the longer reference (>= window_s), s
+  double average_s = 5.0;       // means at each end of the look-back, s
+  double min_span_s = 15.0;     // no decision on a shorter look-back (after a start or gap), s
+  double leak_fraction = 0.10;  // threshold, fraction of the segment's nominal flow
+  double wave_share = 0.5;      // each end's characteristic signal, share of the threshold
+  double metered_share = 0.25;  // growth of the metered shortfall, share of the threshold
+  double balance_share = 0.5;   // compensated imbalance over the look-back, share of the threshold
+  double quiet_share = 0.5;     // largest move before the look-back, share of the threshold
+  double pressure_sigmas = 4.0; // outlet without a pipe-end meter: its fall, in sigmas
+  bool IsValid(std::string* why) const;
+};
+
+// What the detector reads each tick (SI, kg/s and Pa absolute).
+struct RuptureInput {
+  double inflow_kg_s = 0.0;       // inlet meters (pipe start)
+  double outflow_kg_s = 0.0;      // outlet meters
+  double lateral_out_kg_s = 0.0;  // deliveries - injections (metered, mid-line)
+  double p_inlet_pa = 0.0;        // first pressure transmitter
+  double p_outlet_pa = 0.0;       // last pressure transmitter
+  double residual_kg_s = 0.0;     // the balance's compensated residual this tick
+};
+
+struct RuptureStatus {
+  bool rupture = false;          // every condition holds this tick
+  double wave_in_kg_s = 0.0;     // growth of s_in less laterals over the look-back
+  double wave_out_kg_s = 0.0;    // growth of s_out less laterals (NaN: outlet not metered at the pipe end)
+  double outlet_fall_pa = 0.0;   // fall of the outlet pressure over the look-back
+  double metered_kg_s = 0.0;     // growth of the metered shortfall
+  double balance_kg_s = 0.0;     // compensated imbalance over the look-back
+  double estimate_kg_s = 0.0;    // leak rate: the wave estimate (mean of the ends' signals)
+  double span_s = 0.0;           // look-back actually covered
+  double wave_in_before_kg_s = 0.0;  // move of s_in less laterals from reference_s ago to the look-back (NaN: not yet)
+  double metered_before_kg_s = 0.0;  // move of the metered shortfall over the same
+  // True when the look-back shows a leak-like change at both ends (the wave
+  // conditions and the metered growth, at `share` of their thresholds): an
+  // operating change never does, so the monitor does not hold the
+  // decision for it.
+  bool LeakLike(double threshold_kg_s) const;
+  std::string ToString() const;
+};
+
+class RuptureDetector {
+ public:
+  // Sizes the ring from the options and the tick; `segment` gives the end
+  // sections (B = A / a from its fluid at `density_kg_m3`,
+  // `bulk_modulus_pa`) and whether the outlet meters measure the pipe end.
+  bool Init(const RuptureOptions& options, const SegmentSpec& segment, double tick_s, double density_kg_m3,
+            double bulk_modulus_pa, double outlet_pressure_sigma_pa, std::string* why);
+  // Forgets the look-back (after a gap or a restart).
+  void Restart() { count_ = 0; }
+  // One valid tick. Allocates nothing.
+  const RuptureStatus& Step(double t, const RuptureInput& in);
+  const RuptureStatus& status() const { return status_; }
+  double threshold_kg_s() const { return threshold_kg_s_; }
+  double b_inlet_m_s() const { return b_in_; }
+  double b_outlet_m_s() const { return b_out_; }
+  // The end pressures over the look-back, oldest first, for the wave-arrival
+  // pick (locate.h DetectPressureDrop). Fills the caller's buffers (sized
+  // capacity() or more); returns the count. Allocates nothing.
+  int EndPressures(PressureSample* inlet, PressureSample* outlet) const;
+  int capacity() const { return static_cast<int>(ring_.size()); }
+
+ private:
+  struct Sample {
+    double t = 0.0, s_in = 0.0, s_out = 0.0, lat = 0.0, net = 0.0, p_in = 0.0, p_out = 0.0, cum_res_kg = 0.0;
+  };
+  // Mean of the samples with time in [from, to] (by index walk from `first`).
+  Sample MeanOver(int first, int n, double from, double to) const;
+
+  RuptureOptions options_;
+  double threshold_kg_s_ = 0.0;
+  double b_in_ = 0.0, b_out_ = 0.0;  // A / a at each end, m s
+  bool outlet_at_pipe_end_ = true;
+  double outlet_sigma_pa_ = 0.0;
+  std::vector<Sample> ring_;
+  int head_ = 0, count_ = 0;
+  double cum_res_kg_ = 0.0, last_t_ = 0.0;
+  RuptureStatus status_;
+};
+
+}  // namespace holdfast

@@ -1,0 +1,174 @@
+// Rupture fast path (rupture.h).
+#include "holdfast/rupture.h"
+
+#include <algorithm>
+#include <cmath>
+#include <cstdio>
+
+#include "holdfast/pipe.h"
+
+namespace holdfast {
+
+bool RuptureOptions::IsValid(std::string* why) const {
+  auto fail = [&](const char* m) { if (why) *why = m; return false; };
+  if (!(window_s > 0.0)) return fail("rupture: window_s must be positive");
+  if (!(reference_s >= window_s) || !std::isfinite(reference_s)) return fail("rupture: reference_s must be at least window_s");
+  if (!(average_s > 0.0 && average_s < 0.5 * window_s)) return fail("rupture: average_s must be in (0, window_s / 2)");
+  if (!(min_span_s >= 2.0 * average_s && min_span_s <= window_s))
+    return fail("rupture: min_span_s must be in [2 average_s, window_s]");
+  if (!(leak_fraction > 0.0)) return fail("rupture: leak_fraction must be positive");
+  if (!(wave_share > 0.0 && wave_share <= 2.0)) return fail("rupture: wave_share must be in (0, 2]");
+  if (!(metered_share >= 0.0 && metered_share <= 1.0)) return fail("rupture: metered_share must be in [0, 1]");
+  if (!(balance_share >= 0.0 && balance_share <= 1.0)) return fail("rupture: balance_share must be in [0, 1]");
+  if (!(pressure_sigmas > 0.0)) return fail("rupture: pressure_sigmas must be positive");
+  if (!(quiet_share > 0.0)) return fail("rupture: quiet_share must be positive");
+  return true;
+}
+
+bool RuptureStatus::LeakLike(double threshold_kg_s) const {
+  const bool out_ok = std::isnan(wave_out_kg_s) ? outlet_fall_pa > 0.0 : wave_out_kg_s >= threshold_kg_s;
+  return wave_in_kg_s >= threshold_kg_s && out_ok && metered_kg_s > 0.0;
+}
+
+std::string RuptureStatus::ToString() const {
+  char buf[384];
+  std::snprintf(buf, sizeof buf,
+                "rupture=%d wave_in=%.3f kg/s wave_out=%.3f kg/s outlet_fall=%.0f Pa metered=%.3f kg/s "
+                "balance=%.3f kg/s estimate=%.3f kg/s span=%.1f s before: wave_in=%.3f metered=%.3f kg/s",
+                rupture ? 1 : 0, wave_in_kg_s, wave_out_kg_s, outlet_fall_pa, metered_kg_s, balance_kg_s,
+                estimate_kg_s, span_s, wave_in_before_kg_s, metered_before_kg_s);
+  return buf;
+}
+
+bool RuptureDetector::Init(const RuptureOptions& options, const SegmentSpec& segment, double tick_s,
+                           double density_kg_m3, double bulk_modulus_pa, double outlet_pressure_sigma_pa,
+                           std::string* why) {
+  if (!options.IsValid(why)) return false;
+  if (segment.sections.empty() || !(tick_s > 0.0) || !(density_kg_m3 > 0.0) || !(bulk_modulus_pa > 0.0)) {
+    if (why) *why = "rupture: the segment needs sections, a tick, a density and a bulk modulus";
+    return false;
+  }
+  options_ = options;
+  threshold_kg_s_ = options.leak_fraction * segment.nominal_flow_kg_s;
+  auto b_of = [&](const PipeSection& s) {
+    return s.flow_area_m2() / WaveSpeed(bulk_modulus_pa, density_kg_m3, s);
+  };
+  b_in_ = b_of(segment.sections.front());
+  b_out_ = b_of(segment.sections.back());
+  // With a tank inside the control volume the outlet meters measure what
+  // leaves the tank, not the pipe end.
+  outlet_at_pipe_end_ = segment.tanks.empty();
+  outlet_sigma_pa_ = outlet_pressure_sigma_pa;
+  ring_.assign(static_cast<size_t>(std::ceil(options.reference_s / tick_s)) + 2, Sample{});
+  head_ = count_ = 0;
+  cum_res_kg_ = 0.0;
+  status_ = RuptureStatus{};
+  return true;
+}
+
+RuptureDetector::Sample RuptureDetector::MeanOver(int first, int n, double from, double to) const {
+  Sample m;
+  int k = 0;
+  const int size = static_cast<int>(ring_.size());
+  for (int i = 0; i < n; ++i) {
+    const Sample& s = ring_[(first + i) % size];
+    if (s.t < from) continue;
+    if (s.t > to) break;
+    m.t += s.t; m.s_in += s.s_in; m.s_out += s.s_out; m.lat += s.lat; m.net += s.net; m.p_out += s.p_out;
+    m.cum_res_kg += s.cum_res_kg;
+    ++k;
+  }
+  if (k > 0) {
+    const double w = 1.0 / k;
+    m.t *= w; m.s_in *= w; m.s_out *= w; m.lat *= w; m.net *= w; m.p_out *= w; m.cum_res_kg *= w;
+  }
+  return m;
+}
+
+const RuptureStatus& RuptureDetector::Step(double t, const RuptureInput& in) {
+  status_.rupture = false;
+  const int size = static_cast<int>(ring_.size());
+  if (count_ > 0) cum_res_kg_ += in.residual_kg_s * (t - last_t_);
+  else cum_res_kg_ = 0.0;
+  last_t_ = t;
+  Sample s;
+  s.t = t;
+  s.s_in = in.inflow_kg_s - b_in_ * in.p_inlet_pa;
+  s.s_out = -in.outflow_kg_s - b_out_ * in.p_outlet_pa;
+  s.lat = in.lateral_out_kg_s;
+  s.net = in.inflow_kg_s - in.outflow_kg_s - in.lateral_out_kg_s;
+  s.p_in = in.p_inlet_pa;
+  s.p_out = in.p_outlet_pa;
+  s.cum_res_kg = cum_res_kg_;
+  const int slot = (head_ + count_) % size;
+  if (count_ == size) head_ = (head_ + 1) % size; else ++count_;
+  ring_[slot] = s;
+  // Drop samples older than the longer reference.
+  while (count_ > 1 && t - ring_[head_].t > options_.reference_s + 1e-9) {
+    head_ = (head_ + 1) % size;
+    --count_;
+  }
+  // The look-back starts at the first sample within window_s.
+  int first = 0;
+  while (first < count_ - 1 && t - ring_[(head_ + first) % size].t > options_.window_s + 1e-9) ++first;
+  const double t0 = ring_[(head_ + first) % size].t;
+  status_.span_s = t - t0;
+  if (status_.span_s < options_.min_span_s) return status_;
+  const Sample a = MeanOver((head_ + first) % size, count_ - first, t0, t0 + options_.average_s);
+  // The newest samples: walk back from the end.
+  int back = 0;
+  while (back < count_ - first - 1 && t - ring_[(head_ + count_ - 2 - back) % size].t <= options_.average_s + 1e-9)
+    ++back;
+  const Sample b = MeanOver((head_ + count_ - 1 - back) % size, back + 1, t - options_.average_s - 1e-9, t);
+  const double t_ref = ring_[head_].t;
+  const bool have_ref = t - t_ref >= options_.reference_s - options_.average_s;
+  const Sample r = MeanOver(head_, count_, t_ref, t_ref + options_.average_s);
+  status_.wave_in_before_kg_s = have_ref ? (a.s_in - r.s_in) - (a.lat - r.lat) : kNaN;
+  status_.metered_before_kg_s = have_ref ? a.net - r.net : kNaN;
+  const double dlat = b.lat - a.lat;
+  status_.wave_in_kg_s = (b.s_in - a.s_in) - dlat;
+  status_.wave_out_kg_s = outlet_at_pipe_end_ ? (b.s_out - a.s_out) - dlat : kNaN;
+  status_.outlet_fall_pa = a.p_out - b.p_out;
+  status_.metered_kg_s = b.net - a.net;
+  status_.balance_kg_s = (b.cum_res_kg - a.cum_res_kg) / std::max(1e-9, b.t - a.t);
+  status_.estimate_kg_s = outlet_at_pipe_end_ ? 0.5 * (status_.wave_in_kg_s + status_.wave_out_kg_s)
+                                              : status_.wave_in_kg_s;
+  const double thr = threshold_kg_s_;
+  const double wave = options_.wave_share * thr;
+  // A mean of n samples at each end: the difference has sigma sqrt(2/n).
+  const double n_avg = std::max(1.0, options_.average_s / std::max(1e-9, status_.span_s / count_));
+  const bool outlet_ok = outlet_at_pipe_end_
+                             ? status_.wave_out_kg_s >= wave
+                             : status_.outlet_fall_pa > options_.pressure_sigmas * outlet_sigma_pa_ *
+                                                            std::sqrt(2.0 / n_avg);
+  // Before the longer reference is available (a start or a gap), the
+  // look-back alone decides.
+  const double quiet = options_.quiet_share * thr;
+  const bool ref_ok = !have_ref || (std::fabs(status_.wave_in_before_kg_s) <= quiet &&
+                                    std::fabs(status_.metered_before_kg_s) <= quiet);
+  status_.rupture = status_.wave_in_kg_s >= wave && outlet_ok && ref_ok &&
+                    status_.metered_kg_s >= options_.metered_share * thr &&
+                    status_.balance_kg_s >= options_.balance_share * thr;
+  return status_;
+}
+
+}  // namespace holdfast
+
+namespace holdfast {
+
+int RuptureDetector::EndPressures(PressureSample* inlet, PressureSample* outlet) const {
+  const int size = static_cast<int>(ring_.size());
+  if (count_ == 0) return 0;
+  const double newest = ring_[(head_ + count_ - 1) % size].t;
+  int n = 0;
+  for (int i = 0; i < count_; ++i) {
+    const Sample& s = ring_[(head_ + i) % size];
+    if (newest - s.t > options_.window_s + 1e-9) continue;  // the look-back only
+    inlet[n] = PressureSample{s.t, s.p_in};
+    outlet[n] = PressureSample{s.t, s.p_out};
+    ++n;
+  }
+  return n;
+}
+
+}  // namespace holdfast
