@@ -197,7 +197,7 @@ try:
         command(broker, "alice", {"id": "a-1", "segment": "KR-1", "alarm": "leak", "command": "acknowledge"})
         wait_for(lambda: [e for e in events_of(watcher) if e["cause"] == "acknowledged"], TIMEOUT, "the ack event")
         evs = check_dedup(events_of(watcher), "events across the broker restart")
-        F.check(len(leak_raises(evs)) == 1 and leak_raises(evs)[0]["time"] == "2026-03-14T08:16:06.000Z",
+        F.check(len(leak_raises(evs)) == 1 and leak_raises(evs)[0]["time"] == "2026-03-14T08:15:06.000Z",
                 "the leak alarm arrived (once after de-duplication)")
         wait_for(lambda: open(os.path.join(daemon.dir, "journal", "acked")).read().strip() == str(len(evs)),
                  TIMEOUT, "the journal to be fully acknowledged")
