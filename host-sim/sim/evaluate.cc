@@ -235,7 +235,19 @@ json LeakFreeDoc(const BatchSpec& b, double days, uint64_t seed) {
   }
   std::stable_sort(ops.begin(), ops.end(),
                    [](const json& x, const json& y) { return x["at_s"].get<double>() < y["at_s"].get<double>(); });
-  doc["operations"] = ops;
+  // The run starts running: a daily restart before the first daily shut-in
+  // has nothing to restart, and a shut-in while shut in is dropped.
+  json kept = json::array();
+  bool shut_in = false;
+  for (const json& op : ops) {
+    const std::string action = op.value("action", std::string());
+    if (action == "restart" && !shut_in) continue;
+    if (action == "shut_in" && shut_in) continue;
+    if (action == "restart") shut_in = false;
+    if (action == "shut_in") shut_in = true;
+    kept.push_back(op);
+  }
+  doc["operations"] = kept;
   // Day-to-day inlet temperature: independent normal deviations around the
   // base inlet at each midnight, linear in between (the daily swing of the
   // base scenario stays on top). Box-Muller on the batch's own stream.
@@ -268,12 +280,39 @@ json LeakDoc(const BatchSpec& b, double fraction, double chainage_m, double onse
   return doc;
 }
 
+// An operation that happened before a run's start, written into the base
+// scenario's initial settings instead (the simulator then starts at rest in
+// that state). False when it cannot be (a shut-in): it then runs at t = 0.
+bool SetInitially(const json& op, json* doc) {
+  const std::string action = op.value("action", std::string());
+  json& up = (*doc)["upstream"];
+  json& dn = (*doc)["downstream"];
+  if (action == "pump_speed" && up.value("type", std::string()) == "pump" && op.contains("speed")) {
+    up["speed"] = op["speed"];
+    return true;
+  }
+  if (action == "valve" && dn.contains("valve") && dn["valve"].is_object() && op.contains("opening")) {
+    dn["valve"]["opening"] = op["opening"];
+    return true;
+  }
+  if (action == "setpoint" && op.contains("flow") && op.contains("target")) {
+    const std::string target = op.value("target", std::string());
+    if (target == "upstream") up["flow"] = op["flow"];
+    else if (target == "downstream") dn["flow"] = op["flow"];
+    else if (target == "tank_outflow") dn["outflow"] = op["flow"];
+    else (*doc)["laterals"][target] = json{{"flow", op["flow"]}};
+    return true;
+  }
+  return false;
+}
+
 // A leak opening at a clock time of day: the run starts lead_s before it
 // (the base scenario's start is the clock's 00:00), with the daily operations
 // in place of the base scenario's own. The operations of the 24 h before the
 // start are applied at t = 0 in their order, so that the line starts in the
 // state the day's schedule leaves it in (the last one on each quantity
-// wins); the lead time lets that settle. The temperature swing keeps its
+// wins), as initial settings where they can be (SetInitially), else as
+// operations at t = 0; the lead time lets that settle. The swing keeps its
 // clock phase.
 json LeakDocAtClock(const BatchSpec& b, double fraction, double chainage_m, double onset_clock_s, double ramp_s,
                     double observe_s, uint64_t seed) {
@@ -305,6 +344,7 @@ json LeakDocAtClock(const BatchSpec& b, double fraction, double chainage_m, doub
       continue;
     }
     if (action == "shut_in") pending_shut_in = static_cast<int>(ops.size());
+    if (SetInitially(op, &doc)) continue;
     json o = op;
     o["at_s"] = 0.0;
     ops.push_back(o);
