@@ -48,7 +48,7 @@ def write(name, doc):
         f.write("\n")
 
 def batch(name, scenario, lead_fractions, chainages, daily_ops, shut_every, shut_at, shut_s, spread,
-          families, quick=False, observe=7200, tuning_days=3, seeds=(1, 2, 3)):
+          families, observe=7200, tuning_days=3, seeds=(1, 2, 3)):
     b = {"format": "holdfast-batch/1",
          "_comment": "Invented line (config/EVALUATE.md, 'Evaluation lines'). Clock onsets at every hour with the daily operations, a cycled design, ruptures, standard and rough instruments.",
          "name": name, "scenario": scenario, "time_step_s": 1.0, "budget_days": 90,
@@ -62,19 +62,6 @@ def batch(name, scenario, lead_fractions, chainages, daily_ops, shut_every, shut
                   "design": "cycle", "seeds": list(seeds), "ramp_s": 60, "observe_s": observe},
          "ruptures": {"fractions_pct": [10, 30], "ramp_s": 2, "observe_s": 1800},
          "baseline": {"windows_s": [600, 3600, 14400]}}
-    if quick:
-        b["_comment"] = "Quick smoke version of the full batch (tools/evaluate-lines --quick): one day each, a handful of runs; too short for false-alarm rates."
-        b["name"] = name + ", quick"
-        b["tuning"] = {"days": 1, "seed": 101}
-        b["leak_free"]["days"] = 1
-        b["leak_free"]["shut_in_every_days"] = 0
-        b["grid"]["leak_fractions_pct"] = [1]
-        b["grid"]["onset_hours"] = [3, 15]
-        b["grid"]["onsets_during_operations"] = False
-        b["grid"]["observe_s"] = 1800
-        b["grid"]["seeds"] = [1]
-        b["ruptures"] = {"fractions_pct": [30], "ramp_s": 2, "observe_s": 600}
-        b["baseline"] = {"windows_s": [600]}
     return b
 
 # ---------------------------------------------------------------------------

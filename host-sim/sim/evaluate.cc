@@ -908,6 +908,14 @@ const char* BatchFormatVersion() { return "holdfast-batch/1"; }
 
 size_t LeakRunCount(const BatchSpec& b) { return LeakPlans(b).size(); }
 
+std::vector<json> LeakRunDocs(const BatchSpec& b) {
+  std::vector<json> out;
+  for (RunPlan& p : LeakPlans(b)) out.push_back(std::move(p.doc));
+  return out;
+}
+
+json LeakFreeRunDoc(const BatchSpec& b, double days, uint64_t seed) { return LeakFreeDoc(b, days, seed); }
+
 const char* RunKindName(RunKind k) {
   switch (k) {
     case RunKind::kTuning: return "tuning";

@@ -126,6 +126,10 @@ void PoissonInterval95(int count, double* lo, double* hi);
 
 // How many leak and rupture runs the grid makes (LeakPlans in evaluate.cc).
 size_t LeakRunCount(const BatchSpec& batch);
+// The scenario documents of those runs, in order, and of a leak-free run
+// (for tests and inspection).
+std::vector<nlohmann::json> LeakRunDocs(const BatchSpec& batch);
+nlohmann::json LeakFreeRunDoc(const BatchSpec& batch, double days, uint64_t seed);
 
 enum class RunKind : uint8_t { kTuning, kLeakFree, kLeak };
 const char* RunKindName(RunKind k);
