@@ -308,8 +308,8 @@ bool SetInitially(const json& op, json* doc) {
 
 // A leak opening at a clock time of day: the run starts lead_s before it
 // (the base scenario's start is the clock's 00:00), with the daily operations
-// in place of the base scenario's own. The operations of the 24 h before the
-// start are applied at t = 0 in their order, so that the line starts in the
+// in place of the base scenario's own. The operations of the 24 h up to the
+// start (inclusive) are applied at t = 0 in their order, so that the line starts in the
 // state the day's schedule leaves it in (the last one on each quantity
 // wins), as initial settings where they can be (SetInitially), else as
 // operations at t = 0; the lead time lets that settle. The swing keeps its
@@ -326,8 +326,10 @@ json LeakDocAtClock(const BatchSpec& b, double fraction, double chainage_m, doub
   for (int d = d0; d <= d1; ++d)
     for (const json& op : b.daily_operations) {
       const double t = d * kDay_s + op.value("at_s", 0.0) - offset;
-      if (t < 0.0 && t >= -kDay_s) before.emplace_back(t, op);
-      else if (t >= 0.0 && t < duration) during.emplace_back(t, op);
+      // An operation exactly at the start belongs to the state the run
+      // starts in (a restart there ends the night's shut-in).
+      if (t <= 0.0 && t > -kDay_s) before.emplace_back(t, op);
+      else if (t > 0.0 && t < duration) during.emplace_back(t, op);
     }
   auto by_time = [](const std::pair<double, json>& x, const std::pair<double, json>& y) { return x.first < y.first; };
   std::stable_sort(before.begin(), before.end(), by_time);

@@ -211,6 +211,18 @@ TEST_F(BatchFile, ClockOnsetsRupturesAndFamilies) {
       EXPECT_FALSE(d["instruments"]["CF-PT-101"].contains("wander_phi"));
     }
   }
+  // An operation exactly at a run's start is part of its initial state:
+  // onset 08:00 with a 2 h lead starts at 06:00, when the delivery closes.
+  b.onset_hours = {8.0};
+  b.onsets_during_operations = false;
+  b.rupture_fractions.clear();
+  b.leak_fractions = {0.01};
+  {
+    const auto docs = LeakRunDocs(b);
+    ASSERT_EQ(docs.size(), 1u);
+    EXPECT_DOUBLE_EQ(docs[0]["laterals"]["TJ-FT-201"]["flow"]["value"].get<double>(), 0.0);
+    EXPECT_TRUE(docs[0]["operations"].empty());  // it reopens at 18:00, after the run's 3 h
+  }
   // A 10 h shut-in from 20:00 runs past midnight; the month still compiles.
   b.family = "standard";
   const nlohmann::json free = LeakFreeRunDoc(b, 2.0, 5);
