@@ -18,6 +18,7 @@
 #include <thread>
 
 #include "holdfast/monitor.h"
+#include "instruments.h"
 #include "readings_csv.h"
 #include "replay_driver.h"
 #include "scenario.h"
@@ -164,6 +165,30 @@ bool ReadJson(const std::string& path, json* doc, std::string* why) {
 // Scenario documents for the runs
 // ---------------------------------------------------------------------------
 
+// The "rough" instrument family: the per-point settings LoadBatchFile
+// prepared, plus a few short dropouts per point and day at random times
+// (their own stream per point, from the run's seed).
+void ApplyFamily(const BatchSpec& b, double duration_s, uint64_t seed, json* doc) {
+  if (b.family != "rough") return;
+  json& inst = (*doc)["instruments"];
+  if (!inst.is_object()) inst = json::object();
+  for (auto it = b.rough_instruments.begin(); it != b.rough_instruments.end(); ++it) {
+    json& p = inst[it.key()];
+    if (!p.is_object()) p = json::object();
+    for (auto kv = it.value().begin(); kv != it.value().end(); ++kv) p[kv.key()] = kv.value();
+    Rng rng(StreamSeed(seed, "rough-dropouts/" + it.key()));
+    const double expected = kRoughDropoutsPerDay * duration_s / kDay_s;
+    const int n = static_cast<int>(std::floor(expected + rng.Uniform()));
+    json drops = p.contains("dropouts") && p["dropouts"].is_array() ? p["dropouts"] : json::array();
+    for (int k = 0; k < n; ++k) {
+      const double from = std::floor(rng.Uniform() * duration_s);
+      const double len = std::round(kRoughDropoutMin_s + (kRoughDropoutMax_s - kRoughDropoutMin_s) * rng.Uniform());
+      drops.push_back(json{{"from_s", from}, {"to_s", from + len}});
+    }
+    p["dropouts"] = drops;
+  }
+}
+
 json RunDoc(const BatchSpec& b, double duration_s, uint64_t seed) {
   json doc = b.base_scenario;
   doc["duration_s"] = duration_s;
@@ -173,6 +198,7 @@ json RunDoc(const BatchSpec& b, double duration_s, uint64_t seed) {
   // One truth sample an hour is plenty here (the evaluation reads the leak
   // rates and the totals from the truth, not the series).
   doc["truth_every_s"] = 3600.0;
+  ApplyFamily(b, duration_s, seed, &doc);
   return doc;
 }
 
@@ -182,17 +208,23 @@ json LeakFreeDoc(const BatchSpec& b, double days, uint64_t seed) {
   json doc = RunDoc(b, days * kDay_s, seed);
   json ops = json::array();
   const int n_days = static_cast<int>(std::ceil(days));
+  // The shut-in windows (with their clearance); one may run past midnight.
+  std::vector<std::pair<double, double>> shut;
+  for (int d = 0; d < n_days; ++d)
+    if (b.shut_in_every_days > 0.0 && std::fmod(static_cast<double>(d + 1), b.shut_in_every_days) == 0.0)
+      shut.emplace_back(d * kDay_s + b.shut_in_at_s - kShutInClearance_s,
+                        d * kDay_s + b.shut_in_at_s + b.shut_in_s + kShutInClearance_s);
   for (int d = 0; d < n_days; ++d) {
     const double day0 = d * kDay_s;
     const bool shut_day = b.shut_in_every_days > 0.0 &&
                           std::fmod(static_cast<double>(d + 1), b.shut_in_every_days) == 0.0;
-    const double shut_from = day0 + b.shut_in_at_s - kShutInClearance_s;
-    const double shut_to = day0 + b.shut_in_at_s + b.shut_in_s + kShutInClearance_s;
     for (const json& op : b.daily_operations) {
       json o = op;
       const double at = day0 + op.value("at_s", 0.0);
       if (at >= days * kDay_s) continue;
-      if (shut_day && at >= shut_from && at <= shut_to) continue;
+      bool skip = false;
+      for (const auto& w : shut) skip = skip || (at >= w.first && at <= w.second);
+      if (skip) continue;
       o["at_s"] = at;
       ops.push_back(o);
     }
@@ -203,7 +235,19 @@ json LeakFreeDoc(const BatchSpec& b, double days, uint64_t seed) {
   }
   std::stable_sort(ops.begin(), ops.end(),
                    [](const json& x, const json& y) { return x["at_s"].get<double>() < y["at_s"].get<double>(); });
-  doc["operations"] = ops;
+  // The run starts running: a daily restart before the first daily shut-in
+  // has nothing to restart, and a shut-in while shut in is dropped.
+  json kept = json::array();
+  bool shut_in = false;
+  for (const json& op : ops) {
+    const std::string action = op.value("action", std::string());
+    if (action == "restart" && !shut_in) continue;
+    if (action == "shut_in" && shut_in) continue;
+    if (action == "restart") shut_in = false;
+    if (action == "shut_in") shut_in = true;
+    kept.push_back(op);
+  }
+  doc["operations"] = kept;
   // Day-to-day inlet temperature: independent normal deviations around the
   // base inlet at each midnight, linear in between (the daily swing of the
   // base scenario stays on top). Box-Muller on the batch's own stream.
@@ -226,12 +270,100 @@ json LeakFreeDoc(const BatchSpec& b, double days, uint64_t seed) {
   return doc;
 }
 
-json LeakDoc(const BatchSpec& b, double fraction, double chainage_m, double onset_s, uint64_t seed) {
-  json doc = RunDoc(b, onset_s + b.observe_s, seed);
+json LeakDoc(const BatchSpec& b, double fraction, double chainage_m, double onset_s, double ramp_s, double observe_s,
+             uint64_t seed) {
+  json doc = RunDoc(b, onset_s + observe_s, seed);
   doc["leaks"] = json::array({json{{"chainage_m", chainage_m},
                                    {"onset_s", onset_s},
-                                   {"ramp_s", b.leak_ramp_s},
+                                   {"ramp_s", ramp_s},
                                    {"fraction_of_nominal_flow", fraction}}});
+  return doc;
+}
+
+// An operation that happened before a run's start, written into the base
+// scenario's initial settings instead (the simulator then starts at rest in
+// that state). False when it cannot be (a shut-in): it then runs at t = 0.
+bool SetInitially(const json& op, json* doc) {
+  const std::string action = op.value("action", std::string());
+  json& up = (*doc)["upstream"];
+  json& dn = (*doc)["downstream"];
+  if (action == "pump_speed" && up.value("type", std::string()) == "pump" && op.contains("speed")) {
+    up["speed"] = op["speed"];
+    return true;
+  }
+  if (action == "valve" && dn.contains("valve") && dn["valve"].is_object() && op.contains("opening")) {
+    dn["valve"]["opening"] = op["opening"];
+    return true;
+  }
+  if (action == "setpoint" && op.contains("flow") && op.contains("target")) {
+    const std::string target = op.value("target", std::string());
+    if (target == "upstream") up["flow"] = op["flow"];
+    else if (target == "downstream") dn["flow"] = op["flow"];
+    else if (target == "tank_outflow") dn["outflow"] = op["flow"];
+    else (*doc)["laterals"][target] = json{{"flow", op["flow"]}};
+    return true;
+  }
+  return false;
+}
+
+// A leak opening at a clock time of day: the run starts lead_s before it
+// (the base scenario's start is the clock's 00:00), with the daily operations
+// in place of the base scenario's own. The operations of the 24 h up to the
+// start (inclusive) are applied at t = 0 in their order, so that the line starts in the
+// state the day's schedule leaves it in (the last one on each quantity
+// wins), as initial settings where they can be (SetInitially), else as
+// operations at t = 0; the lead time lets that settle. The swing keeps its
+// clock phase.
+json LeakDocAtClock(const BatchSpec& b, double fraction, double chainage_m, double onset_clock_s, double ramp_s,
+                    double observe_s, uint64_t seed) {
+  const double offset = onset_clock_s - b.lead_s;  // the run's start on the clock (may be < 0: the day before)
+  const double duration = b.lead_s + observe_s;
+  json doc = LeakDoc(b, fraction, chainage_m, b.lead_s, ramp_s, observe_s, seed);
+  doc["start"] = FormatIsoUtc(b.base_start_epoch_s + offset, 3);
+  std::vector<std::pair<double, json>> before, during;
+  const int d0 = static_cast<int>(std::floor(offset / kDay_s)) - 1;
+  const int d1 = static_cast<int>(std::ceil((offset + duration) / kDay_s)) + 1;
+  for (int d = d0; d <= d1; ++d)
+    for (const json& op : b.daily_operations) {
+      const double t = d * kDay_s + op.value("at_s", 0.0) - offset;
+      // An operation exactly at the start belongs to the state the run
+      // starts in (a restart there ends the night's shut-in).
+      if (t <= 0.0 && t > -kDay_s) before.emplace_back(t, op);
+      else if (t > 0.0 && t < duration) during.emplace_back(t, op);
+    }
+  auto by_time = [](const std::pair<double, json>& x, const std::pair<double, json>& y) { return x.first < y.first; };
+  std::stable_sort(before.begin(), before.end(), by_time);
+  std::stable_sort(during.begin(), during.end(), by_time);
+  json ops = json::array();
+  // A shut-in and its restart both before the start cancel; a restart whose
+  // shut-in lies further back is dropped; a shut-in still in force stays.
+  int pending_shut_in = -1;
+  for (auto& [t, op] : before) {
+    const std::string action = op.value("action", std::string());
+    if (action == "restart") {
+      if (pending_shut_in >= 0) ops.erase(static_cast<size_t>(pending_shut_in));
+      pending_shut_in = -1;
+      continue;
+    }
+    if (action == "shut_in") pending_shut_in = static_cast<int>(ops.size());
+    if (SetInitially(op, &doc)) continue;
+    json o = op;
+    o["at_s"] = 0.0;
+    ops.push_back(o);
+  }
+  for (auto& [t, op] : during) {
+    json o = op;
+    o["at_s"] = t;
+    ops.push_back(o);
+  }
+  doc["operations"] = ops;
+  if (doc.contains("temperature") && doc["temperature"].contains("swing") && doc["temperature"]["swing"].is_object()) {
+    json& sw = doc["temperature"]["swing"];
+    const double period = sw.value("period_s", kDay_s);
+    double phase = std::fmod(sw.value("phase_s", 0.0) - offset, period);
+    if (phase < 0.0) phase += period;
+    sw["phase_s"] = phase;
+  }
   return doc;
 }
 
@@ -319,6 +451,8 @@ struct RunPlan {
   uint64_t seed = 0;
   json doc;
   double leak_fraction = 0.0, chainage_m = 0.0, onset_s = 0.0;
+  double onset_clock_s = kNaN;
+  bool rupture = false, during_operation = false;
 };
 
 // Simulates one run and feeds it through a monitor (seeded with `tuning`
@@ -333,6 +467,9 @@ RunOutcome ExecuteRun(const Site& site, const BatchSpec& b, const RunPlan& plan,
   o.leak_fraction = plan.leak_fraction;
   o.chainage_m = plan.chainage_m;
   o.onset_s = plan.onset_s;
+  o.onset_clock_s = plan.onset_clock_s;
+  o.rupture = plan.rupture;
+  o.during_operation = plan.during_operation;
   o.rate_at_alarm_kg_s = o.location_at_alarm_m = o.rate_at_end_kg_s = o.location_at_end_m = kNaN;
   o.node_chainage_m = o.true_rate_kg_s = kNaN;
 
@@ -398,6 +535,10 @@ RunOutcome ExecuteRun(const Site& site, const BatchSpec& b, const RunPlan& plan,
     prev_t = t;
     const SegmentTick& st = monitor.segment(seg);
     for (auto& acc : base) acc.Tick(st, t, dt);
+    if (plan.kind == RunKind::kLeakFree && t - sc.start_epoch_s > b.startup_exclusion_s) {
+      o.status_observed_s += dt;
+      if (st.status == SegmentStatus::kUnavailable) o.unavailable_s += dt;
+    }
     if (tuner != nullptr) tuner->Tick(monitor, t);
     if (t >= respond_at) {
       // The operator finds no leak: acknowledges and restarts the detectors
@@ -468,6 +609,110 @@ std::string Fmt(const char* f, double v) {
   return buf;
 }
 
+// Issue 10's "Done when" list on this evaluation.
+void Criteria(const BatchSpec& b, const RunOutcome* free_run, EvaluationResult* r) {
+  r->criteria.clear();
+  auto pct = [](double x) { return Fmt("%.2f %%", 100.0 * x); };
+  // 1. A healthy segment is never unavailable (leak-free run, after the start-up exclusion).
+  {
+    Criterion c;
+    c.name = "time `unavailable` (leak-free run)";
+    c.target = "0 %";
+    if (free_run == nullptr || !(free_run->status_observed_s > 0.0)) {
+      r->unavailable_share = kNaN;
+      c.value = "-";
+      c.verdict = "n/a";
+    } else {
+      r->status_observed_s = free_run->status_observed_s;
+      r->unavailable_share = free_run->unavailable_s / free_run->status_observed_s;
+      c.value = pct(r->unavailable_share) + " (" + Duration(free_run->unavailable_s) + ")";
+      c.verdict = free_run->unavailable_s == 0.0 ? "pass" : "fail";
+    }
+    c.note = "the first " + Fmt("%.0f", b.startup_exclusion_s / 60.0) + " min after the start are not counted";
+    r->criteria.push_back(c);
+  }
+  // 2. Every leak of 0.5 % and more is detected, whatever its hour.
+  {
+    r->runs_half_pct = r->detected_half_pct = 0;
+    for (const RunOutcome& o : r->runs)
+      if (o.kind == RunKind::kLeak && o.error.empty() && o.leak_fraction >= 0.005 - 1e-12) {
+        ++r->runs_half_pct;
+        r->detected_half_pct += o.detected;
+      }
+    Criterion c;
+    c.name = "P(detect), leaks >= 0.5 % (all hours, ruptures included)";
+    c.target = "1";
+    c.value = r->runs_half_pct ? Fmt("%.3f", static_cast<double>(r->detected_half_pct) / r->runs_half_pct) + " (" +
+                                     std::to_string(r->detected_half_pct) + "/" + std::to_string(r->runs_half_pct) + ")"
+                               : "-";
+    c.verdict = r->runs_half_pct == 0 ? "n/a" : r->detected_half_pct == r->runs_half_pct ? "pass" : "fail";
+    c.note = "detected within the observation (" + Duration(b.observe_s) + " leaks, " + Duration(b.rupture_observe_s) +
+             " ruptures)";
+    r->criteria.push_back(c);
+  }
+  // 3. P90 time to detect of a 1 % leak (standard instruments).
+  {
+    std::vector<double> d;
+    for (const RunOutcome& o : r->runs)
+      if (o.kind == RunKind::kLeak && o.error.empty() && !o.rupture && std::fabs(o.leak_fraction - 0.01) < 1e-9)
+        d.push_back(o.detected ? o.detect_delay_s : kInf);
+    r->ttd_p90_1pct_s = d.empty() ? kNaN : Percentile(d, 0.9);
+    Criterion c;
+    c.name = "P90 time to detect, 1 % leak";
+    c.target = "<= 10 min (standard instruments)";
+    c.value = Duration(r->ttd_p90_1pct_s) + (d.empty() ? "" : " (" + std::to_string(d.size()) + " runs)");
+    if (d.empty()) c.verdict = "n/a";
+    else if (b.family != "standard") c.verdict = "n/a", c.note = "the target is for standard instruments";
+    else c.verdict = r->ttd_p90_1pct_s <= 600.0 ? "pass" : "fail";
+    r->criteria.push_back(c);
+  }
+  // 4. Leaks of 10 % and more alarm within 60 s.
+  {
+    r->runs_10pct = r->within_60s_10pct = 0;
+    for (const RunOutcome& o : r->runs)
+      if (o.kind == RunKind::kLeak && o.error.empty() && o.leak_fraction >= 0.10 - 1e-12) {
+        ++r->runs_10pct;
+        r->within_60s_10pct += o.detected && o.detect_delay_s <= 60.0;
+      }
+    Criterion c;
+    c.name = "share of leaks >= 10 % alarmed within 60 s";
+    c.target = "1";
+    c.value = r->runs_10pct ? Fmt("%.3f", static_cast<double>(r->within_60s_10pct) / r->runs_10pct) + " (" +
+                                  std::to_string(r->within_60s_10pct) + "/" + std::to_string(r->runs_10pct) + ")"
+                            : "-";
+    c.verdict = r->runs_10pct == 0 ? "n/a" : r->within_60s_10pct == r->runs_10pct ? "pass" : "fail";
+    c.note = "first leak or rupture alarm after the onset of the opening";
+    r->criteria.push_back(c);
+  }
+  // 5. False alarms within the budget over >= 30 leak-free days with shut-ins.
+  {
+    Criterion c;
+    c.name = "false alarms per 30 days (leak-free run)";
+    r->budget_per_30_days = 30.0 / b.budget_days;
+    c.target = "<= " + Fmt("%.2f", r->budget_per_30_days) + " (budget: one per " + Fmt("%g", b.budget_days) + " days)";
+    if (free_run == nullptr) {
+      c.value = "-";
+      c.verdict = "n/a";
+    } else {
+      const double days = free_run->duration_s / kDay_s;
+      double lo = 0.0, hi = 0.0;
+      PoissonInterval95(free_run->false_alarms, &lo, &hi);
+      r->fa_per_30_days = free_run->false_alarms * 30.0 / days;
+      r->fa_lo_per_30_days = lo * 30.0 / days;
+      r->fa_hi_per_30_days = hi * 30.0 / days;
+      c.value = Fmt("%.2f", r->fa_per_30_days) + " [" + Fmt("%.2f", r->fa_lo_per_30_days) + ", " +
+                Fmt("%.2f", r->fa_hi_per_30_days) + "] (" + std::to_string(free_run->false_alarms) + " in " +
+                Fmt("%g", days) + " days)";
+      if (days < 30.0 - 1e-9) c.verdict = "n/a", c.note = "needs 30 leak-free days or more; ";
+      else if (r->fa_per_30_days <= r->budget_per_30_days) c.verdict = "pass";
+      else if (r->fa_lo_per_30_days > r->budget_per_30_days) c.verdict = "fail";
+      else c.verdict = "inconclusive";
+      c.note += "exact Poisson 95 % interval (Garwood 1936); " + std::to_string(r->shut_ins) + " shut-in(s)";
+    }
+    r->criteria.push_back(c);
+  }
+}
+
 void Aggregate(const BatchSpec& b, EvaluationResult* r) {
   // Thresholds of the baseline on the leak-free run: as many exceedances as
   // the monitor's false alarms there.
@@ -507,14 +752,17 @@ void Aggregate(const BatchSpec& b, EvaluationResult* r) {
   }
 
   // Per leak size.
-  std::map<double, std::vector<const RunOutcome*>> by_size;
+  // Leaks first, then ruptures, each by size.
+  std::map<std::pair<bool, double>, std::vector<const RunOutcome*>> by_size;
   for (const RunOutcome& o : r->runs)
-    if (o.kind == RunKind::kLeak && o.error.empty()) by_size[o.leak_fraction].push_back(&o);
+    if (o.kind == RunKind::kLeak && o.error.empty()) by_size[{o.rupture, o.leak_fraction}].push_back(&o);
   r->sizes.clear();
   r->grid_exposure_s = 0.0;
-  for (const auto& [fraction, runs] : by_size) {
+  for (const auto& [key, runs] : by_size) {
+    const double fraction = key.second;
     SizeRows sr;
     sr.leak_fraction = fraction;
+    sr.rupture = key.first;
     double sum = 0.0;
     int n = 0;
     for (const RunOutcome* o : runs)
@@ -595,11 +843,80 @@ void Aggregate(const BatchSpec& b, EvaluationResult* r) {
   }
   for (const RunOutcome& o : r->runs)
     if (o.kind == RunKind::kLeak && o.error.empty()) r->grid_exposure_s += o.onset_s;
+  Criteria(b, free_run, r);
 }
 
+
+// The grid's leak and rupture runs. Onsets: onsets_s as given, or the clock
+// hours (then each daily operation + kOperationOnsetDelay_s when asked).
+// "cross" runs every size x chainage x onset x seed; "cycle" runs every size
+// x onset once, with chainage (i + k) mod n and seed (i + k) mod m for onset
+// i and size k, so that each size meets every chainage at different hours.
+// Ruptures are always placed by the cycle.
+std::vector<RunPlan> LeakPlans(const BatchSpec& b) {
+  struct Onset {
+    double at_s;  // since the start (fixed) or on the clock
+    bool clock, during_operation;
+  };
+  std::vector<Onset> onsets;
+  for (double on : b.onsets_s) onsets.push_back({on, false, false});
+  for (double h : b.onset_hours) onsets.push_back({h * 3600.0, true, false});
+  if (!b.onset_hours.empty() && b.onsets_during_operations)
+    for (const json& op : b.daily_operations)
+      onsets.push_back({std::fmod(op.value("at_s", 0.0) + kOperationOnsetDelay_s, kDay_s), true, true});
+  std::vector<RunPlan> plans;
+  int idx = 0;
+  auto add = [&](double f, bool rupture, double c, const Onset& on, uint64_t seed) {
+    RunPlan p;
+    p.kind = RunKind::kLeak;
+    p.index = idx++;
+    p.seed = seed;
+    p.leak_fraction = f;
+    p.chainage_m = c;
+    p.rupture = rupture;
+    p.during_operation = on.during_operation;
+    const double ramp = rupture ? b.rupture_ramp_s : b.leak_ramp_s;
+    const double observe = rupture ? b.rupture_observe_s : b.observe_s;
+    if (on.clock) {
+      p.onset_s = b.lead_s;
+      p.onset_clock_s = on.at_s;
+      p.doc = LeakDocAtClock(b, f, c, on.at_s, ramp, observe, seed);
+    } else {
+      p.onset_s = on.at_s;
+      p.doc = LeakDoc(b, f, c, on.at_s, ramp, observe, seed);
+    }
+    plans.push_back(std::move(p));
+  };
+  const size_t nc = b.chainages_m.size(), ns = b.seeds.size();
+  if (nc == 0 || ns == 0) return plans;
+  for (size_t k = 0; k < b.leak_fractions.size(); ++k) {
+    if (b.design == "cycle") {
+      for (size_t i = 0; i < onsets.size(); ++i)
+        add(b.leak_fractions[k], false, b.chainages_m[(i + k) % nc], onsets[i], b.seeds[(i + k) % ns]);
+    } else {
+      for (double c : b.chainages_m)
+        for (const Onset& on : onsets)
+          for (uint64_t s : b.seeds) add(b.leak_fractions[k], false, c, on, s);
+    }
+  }
+  for (size_t k = 0; k < b.rupture_fractions.size(); ++k)
+    for (size_t i = 0; i < onsets.size(); ++i)
+      add(b.rupture_fractions[k], true, b.chainages_m[(i + k) % nc], onsets[i], b.seeds[(i + k) % ns]);
+  return plans;
+}
 }  // namespace
 
 const char* BatchFormatVersion() { return "holdfast-batch/1"; }
+
+size_t LeakRunCount(const BatchSpec& b) { return LeakPlans(b).size(); }
+
+std::vector<json> LeakRunDocs(const BatchSpec& b) {
+  std::vector<json> out;
+  for (RunPlan& p : LeakPlans(b)) out.push_back(std::move(p.doc));
+  return out;
+}
+
+json LeakFreeRunDoc(const BatchSpec& b, double days, uint64_t seed) { return LeakFreeDoc(b, days, seed); }
 
 const char* RunKindName(RunKind k) {
   switch (k) {
@@ -613,6 +930,32 @@ const char* RunKindName(RunKind k) {
 double LordenDelayBound_s(double delta_sigma, double arl0_blocks, double block_s) {
   if (!(delta_sigma > 0.0) || !(arl0_blocks > 1.0)) return kNaN;
   return std::max(1.0, 2.0 * std::log(arl0_blocks) / (delta_sigma * delta_sigma)) * block_s;
+}
+
+bool IsInstrumentFamily(const std::string& name) { return name == "standard" || name == "rough"; }
+
+void PoissonInterval95(int count, double* lo, double* hi) {
+  // Garwood (1936): lo solves P(N >= n | lo) = 0.025, hi solves
+  // P(N <= n | hi) = 0.025; the Poisson sums by bisection on the mean.
+  auto cdf = [](int n, double mu) {  // P(N <= n | mu)
+    double term = std::exp(-mu), sum = term;
+    for (int k = 1; k <= n; ++k) {
+      term *= mu / k;
+      sum += term;
+    }
+    return sum;
+  };
+  auto solve = [](auto f, double a, double b) {  // f decreasing in mu, root in [a, b]
+    for (int i = 0; i < 200; ++i) {
+      const double m = 0.5 * (a + b);
+      (f(m) > 0.0 ? a : b) = m;
+    }
+    return 0.5 * (a + b);
+  };
+  const int n = std::max(0, count);
+  const double top = 10.0 * (n + 10);
+  *hi = solve([&](double mu) { return cdf(n, mu) - 0.025; }, 0.0, top);
+  *lo = n == 0 ? 0.0 : solve([&](double mu) { return (1.0 - cdf(n - 1, mu)) < 0.025 ? 1.0 : -1.0; }, 0.0, top);
 }
 
 bool EvaluateOptions::IsValid(std::string* why) const {
@@ -637,7 +980,7 @@ bool LoadBatchFile(const std::string& path, const Site& site, BatchSpec* b, std:
   }
   b->path = path;
   rd.Keys(doc, "", {"format", "name", "scenario", "time_step_s", "budget_days", "tuning", "leak_free", "grid",
-                    "baseline"});
+                    "baseline", "ruptures", "instrument_families"});
   if (!doc.contains("format") || doc["format"] != BatchFormatVersion())
     rd.Add("/format", std::string("expected \"") + BatchFormatVersion() + "\"");
   b->name = doc.value("name", std::string());
@@ -668,6 +1011,27 @@ bool LoadBatchFile(const std::string& path, const Site& site, BatchSpec* b, std:
         rd.Add("/scenario", "the base scenario has problems (listed above)");
       } else {
         b->segment = sc.segment;
+        b->base_start_epoch_s = sc.start_epoch_s;
+        // What "rough" sets on each simulated point (config/EVALUATE.md).
+        b->rough_instruments = json::object();
+        b->point_ids.clear();
+        for (const PointPlan& pp : sc.points) {
+          const PointSpec& ps = site.points[static_cast<size_t>(pp.point)];
+          const double phi = std::pow(kRoughWanderPhiPerSecond, pp.instrument.sample_period_s);
+          json o = {{"wander_phi", phi}, {"jitter_s", kRoughJitter_s}};
+          if (ps.kind == PointKind::kFlow) {
+            o["noise_pct"] = 100.0 * kRoughNoiseFactor * ps.random_sigma;
+            o["wander_pct"] = 100.0 * kRoughWanderFactor * ps.random_sigma;
+          } else {
+            const double random = ps.random_sigma / ps.unit.factor;
+            o["noise"] = kRoughNoiseFactor * random;
+            o["wander"] = kRoughWanderFactor * random;
+            o["deadband"] = kRoughDeadbandFactor * random;
+            o["heartbeat_s"] = kRoughHeartbeat_s;
+          }
+          b->rough_instruments[ps.id] = o;
+          b->point_ids.push_back(ps.id);
+        }
         const SegmentSpec& seg = site.segments[static_cast<size_t>(sc.segment)];
         if (!(seg.nominal_flow_kg_s > 0.0))
           rd.Add("/scenario", "segment \"" + seg.id + "\" has no nominal flow: it has no decision stage to evaluate");
@@ -688,7 +1052,7 @@ bool LoadBatchFile(const std::string& path, const Site& site, BatchSpec* b, std:
     rd.Seed(*lf, "seed", p, &b->leak_free_seed);
     rd.Number(*lf, "shut_in_every_days", p, false, 0.0, 3650.0, &b->shut_in_every_days);
     rd.Number(*lf, "shut_in_at_s", p, false, 0.0, kDay_s, &b->shut_in_at_s);
-    rd.Number(*lf, "shut_in_s", p, false, 600.0, kDay_s, &b->shut_in_s);
+    rd.Number(*lf, "shut_in_s", p, false, 600.0, kDay_s - 2.0 * kShutInClearance_s, &b->shut_in_s);
     rd.Number(*lf, "inlet_daily_spread_k", p, false, 0.0, 20.0, &b->inlet_daily_spread_k);
     if (lf->contains("daily_operations")) {
       const json& ops = (*lf)["daily_operations"];
@@ -704,22 +1068,74 @@ bool LoadBatchFile(const std::string& path, const Site& site, BatchSpec* b, std:
         b->daily_operations = ops;
       }
     }
-    if (b->shut_in_at_s + b->shut_in_s >= kDay_s)
-      rd.Add(p + "/shut_in_s", "the shut-in must end within its day (shut_in_at_s + shut_in_s < 86400)");
+    if (b->shut_in_every_days > 0.0 && b->shut_in_s + 2.0 * kShutInClearance_s >= b->shut_in_every_days * kDay_s)
+      rd.Add(p + "/shut_in_s", "the shut-ins would overlap (shut_in_s + 1 h must be shorter than shut_in_every_days)");
   }
   if (const json* g = rd.Object(doc, "grid", "", true)) {
     const std::string p = "/grid";
-    rd.Keys(*g, p, {"leak_fractions_pct", "chainages_m", "onsets_s", "seeds", "ramp_s", "observe_s"});
+    rd.Keys(*g, p, {"leak_fractions_pct", "chainages_m", "onsets_s", "onset_hours", "lead_s",
+                    "onsets_during_operations", "design", "seeds", "ramp_s", "observe_s"});
     for (double pct : rd.Numbers(*g, "leak_fractions_pct", p, 0.0, 100.0, true)) b->leak_fractions.push_back(pct / 100.0);
     const double length = b->segment >= 0 ? site.segments[static_cast<size_t>(b->segment)].length_m() : kInf;
     b->chainages_m = rd.Numbers(*g, "chainages_m", p, 0.0, length, false);
     rd.Number(*g, "ramp_s", p, false, 0.0, 86400.0, &b->leak_ramp_s);
     rd.Number(*g, "observe_s", p, false, 600.0, 30.0 * kDay_s, &b->observe_s);
-    b->onsets_s = rd.Numbers(*g, "onsets_s", p, kMinOnset_s, 30.0 * kDay_s, false);
+    if (g->contains("onset_hours") == g->contains("onsets_s")) {
+      rd.Add(p + "/onsets_s", "give either onsets_s (since each run's start) or onset_hours (clock hours), not both");
+    } else if (g->contains("onsets_s")) {
+      b->onsets_s = rd.Numbers(*g, "onsets_s", p, kMinOnset_s, 30.0 * kDay_s, false);
+      for (const char* k : {"lead_s", "onsets_during_operations"})
+        if (g->contains(k)) rd.Add(p + "/" + k, "only with onset_hours");
+    } else {
+      b->onset_hours = rd.Numbers(*g, "onset_hours", p, 0.0, 24.0, false);
+      for (size_t i = 0; i < b->onset_hours.size(); ++i)
+        if (b->onset_hours[i] >= 24.0) rd.Add(p + "/onset_hours/" + std::to_string(i), "must be below 24");
+      rd.Number(*g, "lead_s", p, false, kMinOnset_s, kDay_s, &b->lead_s);
+      if (g->contains("onsets_during_operations")) {
+        if (!(*g)["onsets_during_operations"].is_boolean()) rd.Add(p + "/onsets_during_operations", "must be true or false");
+        else b->onsets_during_operations = (*g)["onsets_during_operations"].get<bool>();
+      }
+      const json& inlet = b->base_scenario.contains("temperature") ? b->base_scenario["temperature"].value("inlet", json())
+                                                                     : json();
+      if (inlet.is_array())
+        rd.Add(p + "/onset_hours", "clock onsets need a constant inlet temperature in the base scenario (a swing may be on top)");
+    }
+    if (g->contains("design")) {
+      const json& d = (*g)["design"];
+      if (!d.is_string() || (d.get<std::string>() != "cross" && d.get<std::string>() != "cycle"))
+        rd.Add(p + "/design", "must be \"cross\" or \"cycle\"");
+      else b->design = d.get<std::string>();
+    }
     for (double s : rd.Numbers(*g, "seeds", p, 0.0, 9007199254740992.0, false)) {
       if (s != std::floor(s)) rd.Add(p + "/seeds", "seeds must be integers");
       b->seeds.push_back(static_cast<uint64_t>(s));
     }
+  }
+  if (const json* ru = rd.Object(doc, "ruptures", "", false)) {
+    const std::string p = "/ruptures";
+    rd.Keys(*ru, p, {"fractions_pct", "ramp_s", "observe_s"});
+    for (double pct : rd.Numbers(*ru, "fractions_pct", p, 0.0, 100.0, true)) b->rupture_fractions.push_back(pct / 100.0);
+    rd.Number(*ru, "ramp_s", p, false, 0.0, 600.0, &b->rupture_ramp_s);
+    rd.Number(*ru, "observe_s", p, false, 300.0, kDay_s, &b->rupture_observe_s);
+  }
+  if (doc.contains("instrument_families")) {
+    const json& f = doc["instrument_families"];
+    b->families.clear();
+    if (!f.is_array() || f.empty()) {
+      rd.Add("/instrument_families", "must be a non-empty array of \"standard\" and \"rough\"");
+    } else {
+      for (size_t i = 0; i < f.size(); ++i) {
+        const std::string fp = "/instrument_families/" + std::to_string(i);
+        if (!f[i].is_string() || !IsInstrumentFamily(f[i].get<std::string>())) {
+          rd.Add(fp, "must be \"standard\" or \"rough\"");
+        } else if (std::find(b->families.begin(), b->families.end(), f[i].get<std::string>()) != b->families.end()) {
+          rd.Add(fp, "listed twice");
+        } else {
+          b->families.push_back(f[i].get<std::string>());
+        }
+      }
+    }
+    if (!b->families.empty()) b->family = b->families.front();
   }
   if (const json* bl = rd.Object(doc, "baseline", "", false)) {
     rd.Keys(*bl, "/baseline", {"windows_s"});
@@ -738,6 +1154,7 @@ bool RunEvaluation(const Site& site, const BatchSpec& b, const EvaluateOptions& 
   const auto t0 = std::chrono::steady_clock::now();
   const SegmentSpec& seg = site.segments[static_cast<size_t>(b.segment)];
   *r = EvaluationResult{};
+  r->family = b.family;
   r->site = site.name;
   r->segment = seg.id;
   r->batch = b.name.empty() ? b.path : b.name;
@@ -767,21 +1184,8 @@ bool RunEvaluation(const Site& site, const BatchSpec& b, const EvaluateOptions& 
   free_plan.seed = b.leak_free_seed;
   free_plan.doc = LeakFreeDoc(b, b.leak_free_days, b.leak_free_seed);
   plans.push_back(free_plan);
-  int idx = 0;
-  for (double f : b.leak_fractions)
-    for (double c : b.chainages_m)
-      for (double on : b.onsets_s)
-        for (uint64_t s : b.seeds) {
-          RunPlan p;
-          p.kind = RunKind::kLeak;
-          p.index = idx++;
-          p.seed = s;
-          p.leak_fraction = f;
-          p.chainage_m = c;
-          p.onset_s = on;
-          p.doc = LeakDoc(b, f, c, on, s);
-          plans.push_back(p);
-        }
+  for (const json& op : free_plan.doc["operations"]) r->shut_ins += op.value("action", std::string()) == "shut_in";
+  for (RunPlan& p : LeakPlans(b)) plans.push_back(std::move(p));
   const int total = static_cast<int>(plans.size()) + 1;
 
   RunOutcome tune_out = ExecuteRun(site, b, tune_plan, nullptr, mopt, &tuner);
@@ -846,7 +1250,7 @@ bool RunEvaluation(const Site& site, const BatchSpec& b, const EvaluateOptions& 
 
 std::string EvaluationResult::SummaryMarkdown() const {
   std::ostringstream o;
-  o << "# Detection performance: " << site << ", segment " << segment << "\n\n";
+  o << "# Detection performance: " << site << ", segment " << segment << " (" << family << " instruments)\n\n";
   o << "> **Caution.** These figures come from simulation of a model of the line. Holdfast is a supplementary "
        "monitoring aid: it does not replace the leak detection required by regulation, the operator's procedures, "
        "local codes or licensed engineering judgement. Prove performance on the real line before relying on it.\n\n";
@@ -856,6 +1260,7 @@ std::string EvaluationResult::SummaryMarkdown() const {
     << Fmt("%.0f", arl0_blocks * block_s / kDay_s) << " days (ARL0 " << Fmt("%.0f", arl0_blocks)
     << " blocks). Nominal flow " << Fmt("%.1f", nominal_flow_kg_s) << " kg/s.\n\n";
 
+  o << CriteriaMarkdown();
   o << "## False alarms (leak-free run, " << Fmt("%g", leak_free_days) << " days)\n\n";
   o << "| method | false alarms | per 30 days | threshold kg/s |\n|---|---:|---:|---:|\n";
   for (const FalseAlarmRow& f : false_alarms)
@@ -869,7 +1274,8 @@ std::string EvaluationResult::SummaryMarkdown() const {
        "|---:|---:|---:|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|\n";
   for (const SizeRows& s : sizes) {
     for (const MethodRow& m : s.rows) {
-      o << "| " << Fmt("%.2f", 100.0 * s.leak_fraction) << " | " << Fmt("%.2f", s.rate_kg_s) << " | "
+      o << "| " << Fmt("%.2f", 100.0 * s.leak_fraction) << (s.rupture ? " rupture" : "") << " | "
+        << Fmt("%.2f", s.rate_kg_s) << " | "
         << Fmt("%.1f", s.delta_sigma) << " | " << m.method << " | " << m.runs << " | "
         << (m.method.rfind("bound", 0) == 0 ? "-" : Fmt("%.2f", m.p_detect)) << " | " << Duration(m.ttd_median_s)
         << " | " << Duration(m.ttd_p90_s) << " | " << Fmt("%.0f %%", m.rate_error_pct_median) << " | "
@@ -890,6 +1296,17 @@ std::string EvaluationResult::SummaryMarkdown() const {
     o << "\nThe grid runs add " << Fmt("%.1f", grid_exposure_s / 3600.0)
       << " h of pre-onset operation (counted in the last column).\n";
   o << "\nWall time " << Fmt("%.1f", wall_s) << " s on " << jobs << " thread(s); " << runs.size() << " runs.\n";
+  return o.str();
+}
+
+std::string EvaluationResult::CriteriaMarkdown() const {
+  std::ostringstream o;
+  o << "## Criteria (issue 10, \"Done when\"; " << family << " instruments)\n\n";
+  o << "| criterion | value | target | verdict | note |\n|---|---|---|---|---|\n";
+  for (const Criterion& c : criteria)
+    o << "| " << c.name << " | " << c.value << " | " << c.target << " | " << c.verdict << " | " << c.note << " |\n";
+  o << "\nFalse alarms: \"pass\" when the observed rate is within the budget, \"fail\" when even the interval's lower "
+       "end exceeds it, otherwise \"inconclusive\" (too few leak-free days to tell).\n\n";
   return o.str();
 }
 
@@ -919,7 +1336,7 @@ std::string EvaluationResult::RunsCsv() const {
   std::ostringstream o;
   o << "kind,index,seed,leak_fraction,chainage_m,node_chainage_m,onset_s,true_rate_kg_s,detected,by_rupture,"
        "detect_delay_s,rate_at_alarm_kg_s,location_at_alarm_m,rate_at_end_kg_s,location_at_end_m,false_alarms,"
-       "duration_s,readings,ticks,sim_residual_rel,wall_s,error\n";
+       "duration_s,readings,ticks,sim_residual_rel,wall_s,error,rupture,onset_clock_s,during_operation\n";
   auto num = [](double v) {
     if (!std::isfinite(v)) return std::string();
     char buf[32];
@@ -938,7 +1355,8 @@ std::string EvaluationResult::RunsCsv() const {
     std::string e = r.error;
     std::replace(e.begin(), e.end(), ',', ';');
     std::replace(e.begin(), e.end(), '\n', ' ');
-    o << e << '\n';
+    o << e << ',' << (r.rupture ? 1 : 0) << ',' << (leak ? num(r.onset_clock_s) : "") << ','
+      << (r.during_operation ? 1 : 0) << '\n';
   }
   return o.str();
 }
@@ -954,6 +1372,22 @@ json EvaluationResult::ToJson() const {
   j["site"] = site;
   j["segment"] = segment;
   j["batch"] = batch;
+  j["family"] = family;
+  j["criteria"] = json::array();
+  for (const Criterion& c : criteria)
+    j["criteria"].push_back({{"name", c.name}, {"value", c.value}, {"target", c.target}, {"verdict", c.verdict},
+                             {"note", c.note}});
+  j["criteria_figures"] = {{"unavailable_share", num(unavailable_share)},
+                           {"status_observed_s", num(status_observed_s)},
+                           {"runs_half_pct", runs_half_pct},
+                           {"detected_half_pct", detected_half_pct},
+                           {"ttd_p90_1pct_s", num(ttd_p90_1pct_s)},
+                           {"runs_10pct", runs_10pct},
+                           {"within_60s_10pct", within_60s_10pct},
+                           {"false_alarms_per_30_days", num(fa_per_30_days)},
+                           {"false_alarms_per_30_days_95", {num(fa_lo_per_30_days), num(fa_hi_per_30_days)}},
+                           {"budget_per_30_days", num(budget_per_30_days)},
+                           {"shut_ins", shut_ins}};
   j["nominal_flow_kg_s"] = num(nominal_flow_kg_s);
   j["tuning"] = {{"bias_kg_s", num(bias_kg_s)}, {"sigma_kg_s", num(sigma_kg_s)}, {"phi", num(phi)},
                  {"sigma_eff_kg_s", num(sigma_eff_kg_s)}, {"block_s", num(block_s)}, {"arl0_blocks", num(arl0_blocks)}};
@@ -964,7 +1398,7 @@ json EvaluationResult::ToJson() const {
                                  {"per_30_days", num(f.per_30_days)}, {"threshold_kg_s", num(f.threshold_kg_s)}});
   j["sizes"] = json::array();
   for (const SizeRows& s : sizes) {
-    json js = {{"leak_fraction", num(s.leak_fraction)}, {"rate_kg_s", num(s.rate_kg_s)},
+    json js = {{"leak_fraction", num(s.leak_fraction)}, {"rupture", s.rupture}, {"rate_kg_s", num(s.rate_kg_s)},
                {"delta_sigma", num(s.delta_sigma)}, {"rows", json::array()}};
     for (const MethodRow& m : s.rows)
       js["rows"].push_back({{"method", m.method}, {"runs", m.runs}, {"detected", m.detected},
@@ -982,6 +1416,8 @@ json EvaluationResult::ToJson() const {
     j["runs"].push_back({{"leak_fraction", num(r.leak_fraction)}, {"chainage_m", num(r.chainage_m)},
                          {"node_chainage_m", num(r.node_chainage_m)}, {"onset_s", num(r.onset_s)},
                          {"seed", r.seed}, {"true_rate_kg_s", num(r.true_rate_kg_s)}, {"detected", r.detected},
+                         {"rupture", r.rupture}, {"onset_clock_s", num(r.onset_clock_s)},
+                         {"during_operation", r.during_operation},
                          {"detect_delay_s", r.detected ? num(r.detect_delay_s) : json(nullptr)},
                          {"location_at_end_m", num(r.location_at_end_m)}, {"rate_at_end_kg_s", num(r.rate_at_end_kg_s)}});
   }

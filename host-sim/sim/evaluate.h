@@ -73,10 +73,30 @@ struct BatchSpec {
   // Grid.
   std::vector<double> leak_fractions;  // of nominal flow
   std::vector<double> chainages_m;
-  std::vector<double> onsets_s;
+  std::vector<double> onsets_s;        // fixed onsets since the run's start (base operations), or
+  std::vector<double> onset_hours;     // onsets at these clock hours, with the daily operations
+  double lead_s = 2.0 * 3600;          // clock onsets: the run starts this long before the onset
+  bool onsets_during_operations = false;  // clock onsets: also at each daily operation + kOperationOnsetDelay_s
+  std::string design = "cross";        // "cross": every combination; "cycle": see LeakPlacement
   std::vector<uint64_t> seeds;
   double leak_ramp_s = 60.0;
   double observe_s = 8.0 * 3600;       // after the onset
+  // Ruptures: sudden leaks at every onset of the grid, judged on the first
+  // leak or rupture alarm.
+  std::vector<double> rupture_fractions;  // of nominal flow
+  double rupture_ramp_s = 2.0;
+  double rupture_observe_s = 1800.0;
+  // Instrument families: each is a whole evaluation (tuning, leak-free run,
+  // grid); `family` is the one RunEvaluation runs.
+  std::vector<std::string> families = {"standard"};
+  std::string family = "standard";
+  // Per point of the base scenario, what "rough" sets (json instrument
+  // settings), filled by LoadBatchFile; and the ids that get dropouts.
+  nlohmann::json rough_instruments = nlohmann::json::object();
+  std::vector<std::string> point_ids;
+  double base_start_epoch_s = 0.0;     // the clock's 00:00 for daily operations and onset hours
+  // The leak-free run's status share ignores this much after its start.
+  double startup_exclusion_s = 1800.0;
   // Baseline windows.
   std::vector<double> baseline_windows_s = {600.0, 3600.0, 4.0 * 3600};
 };
@@ -85,6 +105,31 @@ struct BatchSpec {
 // and the JSON pointer ("b.json:/grid/chainages_m/2: ..."). Relative scenario
 // paths are resolved against the batch file's directory.
 bool LoadBatchFile(const std::string& path, const Site& site, BatchSpec* batch, std::vector<ConfigProblem>* problems);
+
+// Instrument families (config/EVALUATE.md): "standard" keeps the base
+// scenario's instruments; "rough" overrides them.
+bool IsInstrumentFamily(const std::string& name);
+// A leak opens this long after the daily operation it is placed on.
+constexpr double kOperationOnsetDelay_s = 10.0;
+// Rough instruments, relative to each point's declared random accuracy.
+constexpr double kRoughNoiseFactor = 2.5;
+constexpr double kRoughWanderFactor = 1.0;        // wander sigma, x random accuracy
+constexpr double kRoughWanderPhiPerSecond = 0.95;  // per 1 s (phi^period per sample)
+constexpr double kRoughDeadbandFactor = 2.0;      // pressure, temperature, level
+constexpr double kRoughHeartbeat_s = 60.0;
+constexpr double kRoughJitter_s = 0.25;
+constexpr double kRoughDropoutsPerDay = 3.0;      // per point, 5-25 s each
+constexpr double kRoughDropoutMin_s = 5.0, kRoughDropoutMax_s = 25.0;
+
+// Exact (Garwood 1936) two-sided 95 % interval of a Poisson mean from a count.
+void PoissonInterval95(int count, double* lo, double* hi);
+
+// How many leak and rupture runs the grid makes (LeakPlans in evaluate.cc).
+size_t LeakRunCount(const BatchSpec& batch);
+// The scenario documents of those runs, in order, and of a leak-free run
+// (for tests and inspection).
+std::vector<nlohmann::json> LeakRunDocs(const BatchSpec& batch);
+nlohmann::json LeakFreeRunDoc(const BatchSpec& batch, double days, uint64_t seed);
 
 enum class RunKind : uint8_t { kTuning, kLeakFree, kLeak };
 const char* RunKindName(RunKind k);
@@ -106,6 +151,9 @@ struct RunOutcome {
   double chainage_m = 0.0;            // as asked
   double node_chainage_m = 0.0;       // where the simulator put it
   double onset_s = 0.0;               // since the run's start
+  double onset_clock_s = 0.0;         // time of day of the onset (NaN: fixed onsets)
+  bool rupture = false;               // a rupture run (rupture ramp)
+  bool during_operation = false;      // placed on a daily operation
   double true_rate_kg_s = 0.0;        // when fully open (truth.json)
   // The monitor.
   int false_alarms = 0;               // leak or rupture alarms raised before the onset (all, leak-free)
@@ -124,6 +172,9 @@ struct RunOutcome {
   uint64_t readings = 0, ticks = 0;
   double sim_residual_rel = 0.0;      // simulator mass residual / throughput
   double wall_s = 0.0;
+  // Segment status (leak-free run): seconds observed after the start-up
+  // exclusion, and of them unavailable.
+  double status_observed_s = 0.0, unavailable_s = 0.0;
   std::string error;                  // non-empty: the run failed
 };
 
@@ -144,6 +195,7 @@ struct MethodRow {
 
 struct SizeRows {
   double leak_fraction = 0.0;
+  bool rupture = false;
   double rate_kg_s = 0.0;      // mean true rate over the runs
   double delta_sigma = 0.0;    // rate / sigma_eff
   std::vector<MethodRow> rows;
@@ -156,8 +208,14 @@ struct FalseAlarmRow {
   double threshold_kg_s = 0.0;  // baseline only (NaN for the monitor)
 };
 
+// Issue 10's "Done when" list, measured on this evaluation. verdict: "pass",
+// "fail", "inconclusive" or "n/a" (with the reason in note).
+struct Criterion {
+  std::string name, value, target, verdict, note;
+};
+
 struct EvaluationResult {
-  std::string site, segment, batch;
+  std::string site, segment, batch, family = "standard";
   double nominal_flow_kg_s = 0.0;
   // Tuning the runs used.
   double bias_kg_s = 0.0, sigma_kg_s = 0.0, phi = 0.0, sigma_eff_kg_s = 0.0;
@@ -168,10 +226,19 @@ struct EvaluationResult {
   std::vector<RunOutcome> runs;  // tuning, leak-free, then the grid
   std::vector<FalseAlarmRow> false_alarms;
   std::vector<SizeRows> sizes;
+  std::vector<Criterion> criteria;
+  // The figures behind the criteria (NaN when not measured).
+  double unavailable_share = 0.0, status_observed_s = 0.0;
+  int runs_half_pct = 0, detected_half_pct = 0;
+  double ttd_p90_1pct_s = 0.0;
+  int runs_10pct = 0, within_60s_10pct = 0;
+  double fa_per_30_days = 0.0, fa_lo_per_30_days = 0.0, fa_hi_per_30_days = 0.0, budget_per_30_days = 0.0;
+  int shut_ins = 0;
   double wall_s = 0.0;
   int jobs = 1;
 
   std::string SummaryMarkdown() const;  // the tables, notes and the caution
+  std::string CriteriaMarkdown() const; // the criteria block alone
   std::string SummaryCsv() const;       // one row per size and method
   std::string RunsCsv() const;          // one row per run
   nlohmann::json ToJson() const;        // everything, for the report script

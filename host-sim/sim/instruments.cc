@@ -60,6 +60,9 @@ bool InstrumentSpec::IsValid(std::string* why) const {
   if (!(quantum >= 0.0 && deadband >= 0.0 && heartbeat_s >= 0.0)) return fail("quantum, deadband and heartbeat must not be negative");
   if (!(latency_s >= 0.0 && latency_spread_s >= 0.0 && jitter_s >= 0.0)) return fail("latency and jitter must not be negative");
   if (!(spike_rate_per_h >= 0.0)) return fail("spike rate must not be negative");
+  if (!(wander >= 0.0 && wander_fraction >= 0.0)) return fail("wander must not be negative");
+  if (!(wander_phi >= 0.0 && wander_phi < 1.0)) return fail("wander_phi must be in [0, 1)");
+  if (!(low_flow_cutoff >= 0.0)) return fail("low-flow cut-off must not be negative");
   return true;
 }
 
@@ -69,6 +72,9 @@ void Instrument::Init(int point, const std::string& id, const InstrumentSpec& sp
   duration_s_ = duration_s;
   noise_ = Rng(StreamSeed(seed, "noise/" + id));
   timing_ = Rng(StreamSeed(seed, "timing/" + id));
+  wander_rng_ = Rng(StreamSeed(seed, "wander/" + id));
+  // Stationary start: w_0 ~ N(0, 1).
+  wander_state_ = spec.wander_phi > 0.0 ? wander_rng_.Normal() : 0.0;
   Rng bias(StreamSeed(seed, "bias/" + id));
   const double z1 = bias.Normal(), z2 = bias.Normal();
   bias_ = spec.bias + spec.bias_draw_sigma * z1;
@@ -112,6 +118,14 @@ bool Instrument::Sample(double true_value, SimReading* out) {
   double v = true_value * (1.0 + bias_fraction_ + spec_.drift_fraction_per_day * days) + bias_ + spec_.drift_per_day * days;
   const double sigma = spec_.noise + spec_.noise_fraction * std::fabs(true_value);
   v += sigma * z;
+  if (spec_.wander_phi > 0.0) {
+    // AR(1), Box & Jenkins (1976): the innovation's variance 1 - phi^2 keeps
+    // the process at unit variance; the first sample uses w_0 itself.
+    if (samples_ > 1)
+      wander_state_ = spec_.wander_phi * wander_state_ +
+                      std::sqrt(1.0 - spec_.wander_phi * spec_.wander_phi) * wander_rng_.Normal();
+    v += (spec_.wander + spec_.wander_fraction * std::fabs(true_value)) * wander_state_;
+  }
   while (next_spike_ < spec_.spikes.size() && spec_.spikes[next_spike_].at_s <= t) {
     v += spec_.spikes[next_spike_].size;
     ++next_spike_;
@@ -132,6 +146,7 @@ bool Instrument::Sample(double true_value, SimReading* out) {
     last_measured_ = v;
     have_last_ = true;
   }
+  if (spec_.low_flow_cutoff > 0.0 && std::fabs(v) < spec_.low_flow_cutoff) v = 0.0;
   if (spec_.quantum > 0.0) v = std::round(v / spec_.quantum) * spec_.quantum;
 
   for (const TimeWindow& w : spec_.dropouts)

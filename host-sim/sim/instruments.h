@@ -72,6 +72,18 @@ struct InstrumentSpec {
   // (the default: the point's declared systematic accuracy).
   double bias_draw_sigma = 0.0;
   double bias_draw_sigma_fraction = 0.0;
+  // Wandering error: a first-order autoregressive (AR(1)) process
+  // w_k = phi w_(k-1) + sqrt(1 - phi^2) e_k, e_k ~ N(0, 1), started from its
+  // stationary law, times a sigma (wander, point unit, plus wander_fraction of
+  // the reading): stationary variance sigma^2, lag-one autocorrelation phi
+  // per sample (Box & Jenkins 1976, ch. 3). Off when wander_phi is 0. Drawn
+  // on its own stream ("wander/ID"), so the other errors do not change.
+  double wander = 0.0;
+  double wander_fraction = 0.0;
+  double wander_phi = 0.0;  // per sample, in [0, 1)
+  // Flows whose magnitude is below this read exactly 0 (a meter's low-flow
+  // cut-off), point unit; 0: none.
+  double low_flow_cutoff = 0.0;
   double drift_per_day = 0.0;  // grows linearly from the start
   double drift_fraction_per_day = 0.0;
   double quantum = 0.0;        // resolution; 0 = none
@@ -129,7 +141,8 @@ class Instrument {
  private:
   InstrumentSpec spec_;
   int point_ = -1;
-  Rng noise_, timing_;
+  Rng noise_, timing_, wander_rng_;
+  double wander_state_ = 0.0;  // the AR(1) process, unit variance
   double bias_ = 0.0, bias_fraction_ = 0.0;
   double duration_s_ = 0.0;
   double next_s_ = 0.0;

@@ -1068,13 +1068,13 @@ void Compiler::PlanPoints() {
 // takes only the unit-free fields.
 void Compiler::InstrumentFields(const json& obj, const std::string& path, const PointSpec* point, InstrumentSpec* s) {
   std::vector<std::string> keys = {"enabled", "sample_period_s", "phase_s", "heartbeat_s", "latency_s", "latency_spread_s",
-                                   "jitter_s", "spike_rate_per_h", "decimals"};
+                                   "jitter_s", "spike_rate_per_h", "decimals", "wander_phi"};
   const bool flow = point != nullptr && point->kind == PointKind::kFlow;
   if (point != nullptr) {
     if (flow) {
-      keys.insert(keys.end(), {"noise_pct", "bias_pct", "drift_pct_per_day"});
+      keys.insert(keys.end(), {"noise_pct", "bias_pct", "drift_pct_per_day", "wander_pct", "low_flow_cutoff"});
     } else {
-      keys.insert(keys.end(), {"noise", "bias", "drift_per_day"});
+      keys.insert(keys.end(), {"noise", "bias", "drift_per_day", "wander"});
     }
     keys.insert(keys.end(), {"quantum", "deadband", "spike_size", "dropouts", "flatlines", "quality", "spikes"});
   } else {
@@ -1089,6 +1089,7 @@ void Compiler::InstrumentFields(const json& obj, const std::string& path, const 
   NonNegative(obj, "latency_spread_s", path, Need::kOptional, &s->latency_spread_s);
   NonNegative(obj, "jitter_s", path, Need::kOptional, &s->jitter_s);
   NonNegative(obj, "spike_rate_per_h", path, Need::kOptional, &s->spike_rate_per_h);
+  Range(obj, "wander_phi", path, Need::kOptional, 0.0, false, 1.0, true, &s->wander_phi);
   double decimals = 0.0;
   if (Range(obj, "decimals", path, Need::kOptional, 0.0, false, 9.0, false, &decimals) == Got::kOk)
     s->decimals = static_cast<int>(decimals);
@@ -1113,10 +1114,13 @@ void Compiler::InstrumentFields(const json& obj, const std::string& path, const 
     if (NonNegative(obj, "noise_pct", path, Need::kOptional, &pct) == Got::kOk) s->noise_fraction = pct / 100.0;
     bias("bias_pct", 0.01, &s->bias_fraction, &s->bias_draw_sigma_fraction);
     if (Number(obj, "drift_pct_per_day", path, Need::kOptional, &pct) == Got::kOk) s->drift_fraction_per_day = pct / 100.0;
+    if (NonNegative(obj, "wander_pct", path, Need::kOptional, &pct) == Got::kOk) s->wander_fraction = pct / 100.0;
+    NonNegative(obj, "low_flow_cutoff", path, Need::kOptional, &s->low_flow_cutoff);
   } else {
     NonNegative(obj, "noise", path, Need::kOptional, &s->noise);
     bias("bias", 1.0, &s->bias, &s->bias_draw_sigma);
     Number(obj, "drift_per_day", path, Need::kOptional, &s->drift_per_day);
+    NonNegative(obj, "wander", path, Need::kOptional, &s->wander);
   }
   NonNegative(obj, "quantum", path, Need::kOptional, &s->quantum);
   NonNegative(obj, "deadband", path, Need::kOptional, &s->deadband);
@@ -1193,6 +1197,7 @@ void Compiler::CompileInstruments(const json& doc) {
         s.jitter_s = t.jitter_s;
         s.spike_rate_per_h = t.spike_rate_per_h;
         s.decimals = t.decimals;
+        s.wander_phi = t.wander_phi;
       }
     }
   }

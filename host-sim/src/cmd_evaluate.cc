@@ -2,6 +2,7 @@
 // config/EVALUATE.md). Writes DIR/summary.md, summary.csv, runs.csv,
 // evaluation.json, and DIR/report.html through tools/evaluate-report.py
 // (matplotlib).
+#include <algorithm>
 #include <cstdio>
 #include <cstdlib>
 #include <filesystem>
@@ -23,7 +24,7 @@ namespace holdfast::cli {
 namespace {
 
 struct EvaluateArgs {
-  std::string config, batch, out, report_script = HOLDFAST_REPORT_SCRIPT;
+  std::string config, batch, out, report_script = HOLDFAST_REPORT_SCRIPT, family;
   int jobs = 0;
   bool no_report = false, quiet = false;
 };
@@ -34,6 +35,11 @@ std::string ShellQuote(const std::string& s) {
   return q + "'";
 }
 
+int RunFamily(const EvaluateArgs& a, const Site& site, const sim::BatchSpec& batch, const std::string& out,
+              std::string* criteria);
+
+// Every instrument family of the batch (or the one --family names): one
+// evaluation each, in DIR when the batch lists one family, else DIR/FAMILY.
 int RunEvaluate(const EvaluateArgs& a) {
   Site site;
   std::vector<ConfigProblem> problems;
@@ -45,18 +51,47 @@ int RunEvaluate(const EvaluateArgs& a) {
                  problems.size() == 1 ? "" : "s");
     return 2;
   }
+  std::vector<std::string> families = batch.families;
+  if (!a.family.empty()) {
+    if (std::find(families.begin(), families.end(), a.family) == families.end()) {
+      std::fprintf(stderr, "--family %s: the batch lists only", a.family.c_str());
+      for (const auto& f : families) std::fprintf(stderr, " %s", f.c_str());
+      std::fprintf(stderr, "\n");
+      return 2;
+    }
+    families = {a.family};
+  }
+  std::string criteria;
+  for (const std::string& f : families) {
+    sim::BatchSpec b = batch;
+    b.family = f;
+    const std::string out = batch.families.size() > 1 ? (std::filesystem::path(a.out) / f).string() : a.out;
+    const int rc = RunFamily(a, site, b, out, &criteria);
+    if (rc != 0) return rc;
+  }
+  if (batch.families.size() > 1 && a.family.empty()) {
+    std::string why;
+    if (!WriteFileAtomic((std::filesystem::path(a.out) / "criteria.md").string(), criteria, &why)) {
+      std::fprintf(stderr, "%s\n", why.c_str());
+      return 1;
+    }
+  }
+  return 0;
+}
+
+int RunFamily(const EvaluateArgs& a, const Site& site, const sim::BatchSpec& batch, const std::string& out,
+              std::string* criteria) {
   std::error_code ec;
-  std::filesystem::create_directories(a.out, ec);
+  std::filesystem::create_directories(out, ec);
   if (ec) {
-    std::fprintf(stderr, "--out %s: %s\n", a.out.c_str(), ec.message().c_str());
+    std::fprintf(stderr, "--out %s: %s\n", out.c_str(), ec.message().c_str());
     return 1;
   }
-  const size_t grid = batch.leak_fractions.size() * batch.chainages_m.size() * batch.onsets_s.size() *
-                      batch.seeds.size();
+  const size_t grid = sim::LeakRunCount(batch);
   if (!a.quiet)
-    std::fprintf(stderr, "%s: segment %s; tuning %g days, leak-free %g days, %zu leak runs\n", a.batch.c_str(),
-                 site.segments[static_cast<size_t>(batch.segment)].id.c_str(), batch.tuning_days,
-                 batch.leak_free_days, grid);
+    std::fprintf(stderr, "%s: segment %s, %s instruments; tuning %g days, leak-free %g days, %zu leak runs\n",
+                 a.batch.c_str(), site.segments[static_cast<size_t>(batch.segment)].id.c_str(), batch.family.c_str(),
+                 batch.tuning_days, batch.leak_free_days, grid);
   sim::EvaluateOptions options;
   options.jobs = a.jobs;
   const bool tty = ::isatty(2) != 0;
@@ -82,7 +117,8 @@ int RunEvaluate(const EvaluateArgs& a) {
     std::fprintf(stderr, "%s: %s\n", a.batch.c_str(), why.c_str());
     return 2;
   }
-  const std::string dir = a.out + (a.out.empty() || a.out.back() == '/' ? "" : "/");
+  *criteria += result.CriteriaMarkdown();
+  const std::string dir = out + (out.empty() || out.back() == '/' ? "" : "/");
   const std::string md = result.SummaryMarkdown();
   struct Out {
     std::string name, text;
@@ -101,7 +137,7 @@ int RunEvaluate(const EvaluateArgs& a) {
   std::printf("\nwrote %ssummary.md, summary.csv, runs.csv, evaluation.json\n", dir.c_str());
   if (a.no_report) return 0;
   const char* python = ::access("/usr/bin/python3", X_OK) == 0 ? "/usr/bin/python3" : "python3";
-  const std::string cmd = std::string(python) + " " + ShellQuote(a.report_script) + " " + ShellQuote(a.out);
+  const std::string cmd = std::string(python) + " " + ShellQuote(a.report_script) + " " + ShellQuote(out);
   const int rc = std::system(cmd.c_str());
   if (rc != 0) {
     std::fprintf(stderr, "report: '%s' failed (status %d); the tables above are complete. "
@@ -123,6 +159,7 @@ void Register(CLI::App& app, int* exit_code) {
   cmd->add_flag("--no-report", args->no_report, "Tables only: skip the HTML report (no matplotlib needed)");
   cmd->add_option("--report-script", args->report_script, "The report script (default: the source tree's)");
   cmd->add_flag("--quiet", args->quiet, "No progress on standard error");
+  cmd->add_option("--family", args->family, "Run only this instrument family of the batch (standard, rough)");
   cmd->callback([args, exit_code] { *exit_code = RunEvaluate(*args); });
 }
 

@@ -10,6 +10,7 @@
 
 #include <gtest/gtest.h>
 
+#include "scenario.h"
 #include "site_file.h"
 
 namespace holdfast::sim {
@@ -134,6 +135,123 @@ TEST_F(BatchFile, SmallBatchRunsEndToEnd) {
   EXPECT_NE(md.find("supplementary monitoring aid"), std::string::npos);
   EXPECT_NE(md.find("| holdfast |"), std::string::npos);
   EXPECT_NE(r.RunsCsv().find("leak,0,1,0.02,12000"), std::string::npos) << r.RunsCsv();
+}
+
+// Exact Poisson limits (Garwood 1936). n = 0: the upper limit solves
+// e^-mu = 0.025, mu = -ln 0.025 = 3.6889; n = 1: the lower solves
+// 1 - e^-mu = 0.025, mu = -ln 0.975 = 0.025318, the upper
+// e^-mu (1 + mu) = 0.025 (5.5716 in published tables, from memory); n = 10:
+// 4.7954 and 18.3904 (published tables, from memory).
+TEST(PoissonInterval, GarwoodLimits) {
+  double lo = 0.0, hi = 0.0;
+  PoissonInterval95(0, &lo, &hi);
+  EXPECT_DOUBLE_EQ(lo, 0.0);
+  EXPECT_NEAR(hi, -std::log(0.025), 1e-9);
+  PoissonInterval95(1, &lo, &hi);
+  EXPECT_NEAR(lo, -std::log(0.975), 1e-9);
+  EXPECT_NEAR(std::exp(-hi) * (1.0 + hi), 0.025, 1e-12);
+  EXPECT_NEAR(hi, 5.5716, 1e-4);
+  PoissonInterval95(10, &lo, &hi);
+  EXPECT_NEAR(lo, 4.7954, 1e-3);
+  EXPECT_NEAR(hi, 18.3904, 1e-3);
+}
+
+// Clock onsets with the daily operations, the cycled design, ruptures and
+// the rough family: the plan counts, and every run's scenario compiles.
+TEST_F(BatchFile, ClockOnsetsRupturesAndFamilies) {
+  BatchSpec b;
+  const auto lines = Problems(R"({"format": "holdfast-batch/1", "scenario": "base.json",
+      "instrument_families": ["standard", "rough"],
+      "leak_free": {"days": 2, "shut_in_every_days": 1, "shut_in_at_s": 72000, "shut_in_s": 36000,
+        "daily_operations": [
+          {"at_s": 21600, "action": "setpoint", "target": "TJ-FT-201", "flow": {"value": 0, "unit": "t/h"}, "ramp_s": 120},
+          {"at_s": 64800, "action": "setpoint", "target": "TJ-FT-201", "flow": {"value": 150, "unit": "t/h"}, "ramp_s": 120}]},
+      "grid": {"leak_fractions_pct": [1, 2], "chainages_m": [10000, 30000], "onset_hours": [0, 7, 20],
+               "lead_s": 7200, "onsets_during_operations": true, "design": "cycle", "seeds": [1],
+               "observe_s": 3600},
+      "ruptures": {"fractions_pct": [10, 30], "ramp_s": 2, "observe_s": 900}})", &b);
+  ASSERT_TRUE(lines.empty()) << lines.front();
+  ASSERT_EQ(b.families.size(), 2u);
+  // 5 onsets (3 hours + 2 operations): 2 sizes x 5 + 2 ruptures x 5.
+  EXPECT_EQ(LeakRunCount(b), 20u);
+  b.design = "cross";
+  EXPECT_EQ(LeakRunCount(b), 30u);  // 2 sizes x 2 chainages x 5 onsets + 10 ruptures
+  b.design = "cycle";
+  for (const char* family : {"standard", "rough"}) {
+    b.family = family;
+    const auto docs = LeakRunDocs(b);
+    ASSERT_EQ(docs.size(), 20u);
+    for (size_t i = 0; i < docs.size(); ++i) {
+      Scenario sc;
+      std::vector<ConfigProblem> problems;
+      EXPECT_TRUE(CompileScenario(docs[i], site_, &sc, &problems))
+          << family << " run " << i << ": " << (problems.empty() ? "" : problems.front().ToString());
+    }
+    // Onset 07:00: the run starts at 05:00; the delivery closed at 06:00
+    // (clock) is at 3600 s; the previous evening's reopening is the initial
+    // setting; the leak opens at the lead time.
+    const nlohmann::json& d = docs[1];
+    EXPECT_EQ(d["start"], "2026-04-06T05:00:00.000Z");
+    EXPECT_DOUBLE_EQ(d["leaks"][0]["onset_s"].get<double>(), 7200.0);
+    ASSERT_EQ(d["operations"].size(), 1u);
+    EXPECT_DOUBLE_EQ(d["operations"][0]["at_s"].get<double>(), 3600.0);
+    EXPECT_DOUBLE_EQ(d["laterals"]["TJ-FT-201"]["flow"]["value"].get<double>(), 150.0);
+    // Onset 00:00: starts 22:00 the day before, with the delivery as the
+    // evening left it.
+    EXPECT_EQ(docs[0]["start"], "2026-04-05T22:00:00.000Z");
+    // The ruptures open in 2 s.
+    EXPECT_DOUBLE_EQ(docs[10]["leaks"][0]["ramp_s"].get<double>(), 2.0);
+    if (b.family == "rough") {
+      const nlohmann::json& pt = d["instruments"]["CF-PT-101"];
+      EXPECT_NEAR(pt["noise"].get<double>(), 2.5 * 0.02, 1e-12);  // the site's random accuracy, bar
+      EXPECT_NEAR(pt["wander_phi"].get<double>(), 0.95 * 0.95, 1e-12);  // 2 s sampling in the base scenario
+      EXPECT_DOUBLE_EQ(pt["heartbeat_s"].get<double>(), 60.0);
+      EXPECT_NEAR(d["instruments"]["CF-FT-101"]["noise_pct"].get<double>(), 0.25, 1e-12);
+    } else {
+      EXPECT_FALSE(d["instruments"]["CF-PT-101"].contains("wander_phi"));
+    }
+  }
+  // An operation exactly at a run's start is part of its initial state:
+  // onset 08:00 with a 2 h lead starts at 06:00, when the delivery closes.
+  b.onset_hours = {8.0};
+  b.onsets_during_operations = false;
+  b.rupture_fractions.clear();
+  b.leak_fractions = {0.01};
+  {
+    const auto docs = LeakRunDocs(b);
+    ASSERT_EQ(docs.size(), 1u);
+    EXPECT_DOUBLE_EQ(docs[0]["laterals"]["TJ-FT-201"]["flow"]["value"].get<double>(), 0.0);
+    EXPECT_TRUE(docs[0]["operations"].empty());  // it reopens at 18:00, after the run's 3 h
+  }
+  // A 10 h shut-in from 20:00 runs past midnight; the month still compiles.
+  b.family = "standard";
+  const nlohmann::json free = LeakFreeRunDoc(b, 2.0, 5);
+  Scenario sc;
+  std::vector<ConfigProblem> problems;
+  EXPECT_TRUE(CompileScenario(free, site_, &sc, &problems)) << (problems.empty() ? "" : problems.front().ToString());
+  int shut_ins = 0;
+  for (const auto& op : free["operations"]) {
+    if (op["action"] == "shut_in") ++shut_ins;
+    const double at = op["at_s"].get<double>();
+    // No daily operation inside a shut-in (with its half-hour clearance).
+    if (op["action"] == "setpoint") EXPECT_FALSE(at > 72000.0 - 1800.0 && at < 72000.0 + 36000.0 + 1800.0) << at;
+  }
+  EXPECT_EQ(shut_ins, 1);  // day 1's; day 2's would end after the run
+}
+
+TEST_F(BatchFile, NewKeysAreChecked) {
+  BatchSpec b;
+  const auto lines = Problems(R"({"format": "holdfast-batch/1", "scenario": "base.json",
+      "instrument_families": ["standard", "smooth", "standard"], "leak_free": {"shut_in_s": 90000},
+      "grid": {"leak_fractions_pct": [1], "chainages_m": [10000], "onsets_s": [3600], "onset_hours": [24],
+               "design": "diagonal", "seeds": [1]},
+      "ruptures": {"ramp_s": 2}})", &b);
+  EXPECT_TRUE(Has(lines, "b.json:/instrument_families/1: must be \"standard\" or \"rough\""));
+  EXPECT_TRUE(Has(lines, "b.json:/instrument_families/2: listed twice"));
+  EXPECT_TRUE(Has(lines, "b.json:/leak_free/shut_in_s: must be in [600, 82800]"));
+  EXPECT_TRUE(Has(lines, "b.json:/grid/onsets_s: give either onsets_s"));
+  EXPECT_TRUE(Has(lines, "b.json:/grid/design: must be \"cross\" or \"cycle\""));
+  EXPECT_TRUE(Has(lines, "b.json:/ruptures/fractions_pct: is required"));
 }
 
 }  // namespace

@@ -4,6 +4,7 @@
 #include <cmath>
 #include <cstdint>
 #include <limits>
+#include <string>
 #include <vector>
 
 #include <gtest/gtest.h>
@@ -193,6 +194,79 @@ TEST(Instrument, RandomSpikesAtTheirRate) {
   for (const auto& x : r) spikes += std::fabs(x.value - 5.0) > 50.0 ? 1 : 0;
   // Binomial(20001, 0.1): mean 2000, sigma 42.
   EXPECT_NEAR(spikes, 2000, 170);
+}
+
+// The wandering error is an AR(1) process x_k = phi x_(k-1) + sqrt(1-phi^2) sigma e_k.
+// Closed-form AR(1) values (Box & Jenkins 1976, ch. 3): stationary variance
+// sigma^2, autocorrelation phi^k at lag k. The sampling error of the lag-one
+// estimate is about sqrt((1 - phi^2) / n) (Bartlett 1946), of the variance
+// about sigma^2 sqrt(2 (1 + phi^2) / ((1 - phi^2) n)); bounds are 5 of those.
+TEST(Instrument, WanderIsAnAr1WithItsClosedFormStatistics) {
+  const double phi = 0.95, sigma = 0.5;
+  InstrumentSpec on;
+  on.noise = 0.2;  // white noise stays as it was: subtracted below
+  on.wander = sigma;
+  on.wander_phi = phi;
+  InstrumentSpec off = on;
+  off.wander_phi = 0.0;
+  const double duration = 199999.0;
+  const auto a = Readings(on, duration, Flat, 3);
+  const auto b = Readings(off, duration, Flat, 3);
+  ASSERT_EQ(a.size(), b.size());
+  const size_t n = a.size();
+  std::vector<double> w(n);
+  for (size_t i = 0; i < n; ++i) w[i] = a[i].value - b[i].value;  // the wander alone
+  double mean = 0.0;
+  for (double x : w) mean += x;
+  mean /= static_cast<double>(n);
+  auto autocov = [&](size_t lag) {
+    double s = 0.0;
+    for (size_t i = lag; i < n; ++i) s += (w[i] - mean) * (w[i - lag] - mean);
+    return s / static_cast<double>(n);
+  };
+  const double c0 = autocov(0);
+  const double nn = static_cast<double>(n);
+  EXPECT_NEAR(c0, sigma * sigma, 5.0 * sigma * sigma * std::sqrt(2.0 * (1.0 + phi * phi) / ((1.0 - phi * phi) * nn)));
+  EXPECT_NEAR(autocov(1) / c0, phi, 5.0 * std::sqrt((1.0 - phi * phi) / nn));
+  // Lag 10: phi^10 = 0.5987; Bartlett's variance for an AR(1) at lag k,
+  // (1 + phi^2)(1 - phi^(2k)) / (1 - phi^2) - 2 k phi^(2k), over n.
+  const double r10 = std::pow(phi, 10);
+  const double var10 = ((1 + phi * phi) * (1 - r10 * r10) / (1 - phi * phi) - 20.0 * r10 * r10) / nn;
+  EXPECT_NEAR(autocov(10) / c0, r10, 5.0 * std::sqrt(var10));
+}
+
+TEST(Instrument, WanderOffLeavesTheReadingsAsTheyWere) {
+  InstrumentSpec plain;
+  plain.noise = 0.2;
+  plain.jitter_s = 0.1;
+  InstrumentSpec zero = plain;
+  zero.wander = 3.0;  // a sigma without a phi is off
+  const auto a = Readings(plain, 500.0, Ramp, 4);
+  const auto b = Readings(zero, 500.0, Ramp, 4);
+  ASSERT_EQ(a.size(), b.size());
+  for (size_t i = 0; i < a.size(); ++i) {
+    EXPECT_EQ(a[i].value, b[i].value);
+    EXPECT_EQ(a[i].time_s, b[i].time_s);
+  }
+}
+
+double Trickle(double t) { return t < 50.0 ? 0.4 : 20.0; }
+
+TEST(Instrument, LowFlowCutOffReadsExactlyZero) {
+  InstrumentSpec s;
+  s.noise = 0.05;
+  s.low_flow_cutoff = 1.0;
+  const auto r = Readings(s, 99.0, Trickle);
+  for (const auto& x : r) {
+    if (x.time_s < 50.0) EXPECT_EQ(x.value, 0.0);
+    else EXPECT_GT(x.value, 19.0);
+  }
+  std::string why;
+  s.low_flow_cutoff = -1.0;
+  EXPECT_FALSE(s.IsValid(&why));
+  s.low_flow_cutoff = 0.0;
+  s.wander_phi = 1.0;
+  EXPECT_FALSE(s.IsValid(&why));
 }
 
 }  // namespace
