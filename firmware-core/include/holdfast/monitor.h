@@ -147,6 +147,11 @@ class Monitor {
     double transient_hold_crossings = 6.0;
     double transient_min_hold_s = 300.0;
     double transient_max_hold_s = 900.0;
+    // A step of the inlet flow beyond this fraction of nominal flow (a
+    // restart after a shut-in, a trip) holds for transient_max_hold_s: the
+    // line-pack error such a change leaves decays with the decision filter
+    // (300 s), not with the waves.
+    double transient_large_fraction = 0.25;
     // Shut-in watch: the segment is blocked in when every boundary meter
     // reads at most this fraction of nominal flow.
     double shut_in_flow_fraction = 0.005;

@@ -20,7 +20,9 @@
 // leaves that end's s unchanged (the wave it sends satisfies the invariant
 // there), so it cannot look like a leak at both ends at once. A metered
 // delivery opening mid-line is hydraulically a leak; its metered change is
-// subtracted from both.
+// subtracted from both; but its waves reach the ends later than its meter
+// shows it, so a look-back in which a lateral changed by more than
+// quiet_share x the threshold is left to the decision.
 //
 // A rupture is raised when, over the look-back (window_s), all of:
 //   * s_in (less the change in metered laterals) grew by wave_share x the
@@ -83,13 +85,15 @@ struct RuptureStatus {
   double wave_out_kg_s = 0.0;    // growth of s_out less laterals (NaN: outlet not metered at the pipe end)
   double outlet_fall_pa = 0.0;   // fall of the outlet pressure over the look-back
   double metered_kg_s = 0.0;     // growth of the metered shortfall
+  double lateral_change_kg_s = 0.0;  // change of the metered laterals (deliveries - injections)
   double balance_kg_s = 0.0;     // compensated imbalance over the look-back
   double estimate_kg_s = 0.0;    // leak rate: the wave estimate (mean of the ends' signals)
   double span_s = 0.0;           // look-back actually covered
   double wave_in_before_kg_s = 0.0;  // move of s_in less laterals from reference_s ago to the look-back (NaN: not yet)
   double metered_before_kg_s = 0.0;  // move of the metered shortfall over the same
   // True when the look-back shows a leak-like change at both ends (the wave
-  // conditions and the metered growth, at `share` of their thresholds): an
+  // conditions and the metered growth at `threshold_kg_s`, no lateral
+  // changed by more than half of it): an
   // operating change never does, so the monitor does not hold the
   // decision for it.
   bool LeakLike(double threshold_kg_s) const;

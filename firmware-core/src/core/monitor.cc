@@ -87,6 +87,10 @@ bool Monitor::Options::IsValid(std::string* why) const {
     if (why) *why = "transient hold: crossings and minimum must be zero or positive, maximum at least the minimum";
     return false;
   }
+  if (!(transient_large_fraction > transient_flow_fraction)) {
+    if (why) *why = "transient_large_fraction must exceed transient_flow_fraction";
+    return false;
+  }
   if (!(shut_in_flow_fraction >= 0.0 && shut_in_flow_fraction < 0.5)) {
     if (why) *why = "shut_in_flow_fraction must be in [0, 0.5)";
     return false;
@@ -480,7 +484,8 @@ void Monitor::EndBlock(SegmentRuntime& s, double t) {
     // doing, not an operator's: the detectors go on.
     if ((dq > options_.transient_flow_fraction * s.spec->nominal_flow_kg_s || dp > options_.transient_pressure_pa) &&
         !(t < s.leak_like_until_s)) {
-      s.decision.MarkTransient(t, s.transient_hold_s);
+      const bool large = dq > options_.transient_large_fraction * s.spec->nominal_flow_kg_s;
+      s.decision.MarkTransient(t, large ? options_.transient_max_hold_s : s.transient_hold_s);
       s.tick.transient = true;
     }
   }

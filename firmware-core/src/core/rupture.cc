@@ -27,7 +27,8 @@ bool RuptureOptions::IsValid(std::string* why) const {
 
 bool RuptureStatus::LeakLike(double threshold_kg_s) const {
   const bool out_ok = std::isnan(wave_out_kg_s) ? outlet_fall_pa > 0.0 : wave_out_kg_s >= threshold_kg_s;
-  return wave_in_kg_s >= threshold_kg_s && out_ok && metered_kg_s > 0.0;
+  return wave_in_kg_s >= threshold_kg_s && out_ok && metered_kg_s > 0.0 &&
+         std::fabs(lateral_change_kg_s) <= 0.5 * threshold_kg_s;
 }
 
 std::string RuptureStatus::ToString() const {
@@ -126,6 +127,7 @@ const RuptureStatus& RuptureDetector::Step(double t, const RuptureInput& in) {
   status_.wave_in_before_kg_s = have_ref ? (a.s_in - r.s_in) - (a.lat - r.lat) : kNaN;
   status_.metered_before_kg_s = have_ref ? a.net - r.net : kNaN;
   const double dlat = b.lat - a.lat;
+  status_.lateral_change_kg_s = dlat;
   status_.wave_in_kg_s = (b.s_in - a.s_in) - dlat;
   status_.wave_out_kg_s = outlet_at_pipe_end_ ? (b.s_out - a.s_out) - dlat : kNaN;
   status_.outlet_fall_pa = a.p_out - b.p_out;
@@ -145,8 +147,14 @@ const RuptureStatus& RuptureDetector::Step(double t, const RuptureInput& in) {
   // look-back alone decides.
   const double quiet = options_.quiet_share * thr;
   const bool ref_ok = !have_ref || (std::fabs(status_.wave_in_before_kg_s) <= quiet &&
-                                    std::fabs(status_.metered_before_kg_s) <= quiet);
-  status_.rupture = status_.wave_in_kg_s >= wave && outlet_ok && ref_ok &&
+                                    std::fabs(status_.metered_before_kg_s) <= quiet &&
+                                    std::fabs(a.lat - r.lat) <= quiet);
+  // A metered delivery or injection that changed is an operator's doing:
+  // its waves reach the ends later than its meter shows it (by x / a, and
+  // smeared by friction on a long line), so over the look-back the ends can
+  // look as if an unmetered flow had appeared. Left to the decision.
+  const bool laterals_quiet = std::fabs(dlat) <= options_.quiet_share * thr;
+  status_.rupture = status_.wave_in_kg_s >= wave && outlet_ok && ref_ok && laterals_quiet &&
                     status_.metered_kg_s >= options_.metered_share * thr &&
                     status_.balance_kg_s >= options_.balance_share * thr;
   return status_;
