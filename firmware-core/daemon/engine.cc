@@ -214,7 +214,7 @@ void Engine::NoteDataTime(double now_s) {
     feed_silent_ = false;
     Log("feed resumed after %.1f s of silence (data time %s)", now_s - silent_since_wall_s_,
         FormatIsoUtc(t, 3).c_str());
-    last_heartbeat_s_ = -1e300;  // say so at once
+    last_heartbeat_s_ = last_status_s_ = -1e300;  // say so at once
   }
 }
 
@@ -232,7 +232,7 @@ void Engine::Watchdog(double now_s) {
         "ticking on with the wall clock",
         FormatIsoUtc(data_moved_wall_s_, 3).c_str(), now_s - data_moved_wall_s_, feed_silence_s_,
         FormatIsoUtc(seen_newest_s_, 3).c_str());
-    last_heartbeat_s_ = -1e300;
+    last_heartbeat_s_ = last_status_s_ = -1e300;  // status and heartbeat say so at once
   }
   // Data time follows the wall clock from the last reading on.
   const double target = seen_newest_s_ + (now_s - data_moved_wall_s_);

@@ -64,7 +64,9 @@ std::string ConnectFailureText(int rc, bool tls) {
     case 2: return "the broker rejected the client id (CONNACK 2; another daemon with the same client_id?)";
     case 3: return "the broker is unavailable (CONNACK 3)";
     case 4: return "authentication failed: the broker refused the user name or password (CONNACK 4; check credentials_file)";
-    case 5: return "not authorised: the broker refused this client (CONNACK 5; user, certificate or ACL)";
+    case 5:
+      return "not authorised: the broker refused this client's credentials (CONNACK 5: a wrong user name or "
+             "password, or a user or certificate the broker does not admit; check credentials_file)";
     case -1:
       return tls ? "connection failed: TCP refused, or the TLS handshake failed (certificate, CA or host name; see "
                    "any TLS error above), or the broker closed the connection (return code -1)"
