@@ -455,7 +455,7 @@ try:
         print("FIGURE commands: operator reply %.2f s after a 2000-command flood" % (time.time() - t0))
         st = wait_for(lambda: (lambda s: s if s and s.get("commands_rate_limited", 0) > 0 else None)(
             broker.get_retained("watcher", PREFIX + "/daemon")), TIMEOUT, "the rate-limit counter")
-        st = wait_for(lambda: (lambda s: s if s and s.get("commands", 0) >= 2000 + 7 else None)(
+        st = wait_for(lambda: (lambda s: s if s and s.get("commands", 0) >= 2000 + 3 else None)(
             broker.get_retained("watcher", PREFIX + "/daemon")), TIMEOUT, "the whole flood counted")
         F.check(st["commands_rate_limited"] >= 1950, "the flood cut at the rate limit: %d dropped" %
                 st["commands_rate_limited"])
