@@ -289,7 +289,7 @@ try:
         st = broker.get_retained("watcher", PREFIX + "/daemon")
         rej = st["readings_rejected"]
         print("rejections:", json.dumps(rej))
-        for k in ("malformed_json", "wrong_type", "absurd_time", "bad_time", "bad_quality", "unknown_field",
+        for k in ("malformed_json", "wrong_type", "absurd_time", "bad_time", "bad_quality", "unknown_field", "not_finite",
                   "unknown_point", "oversized", "batch_too_large", "missing_field"):
             F.check(rej.get(k, 0) > 0, "counted %s: %d" % (k, rej.get(k, 0)))
         F.check(st["commands_rejected"] >= 9, "bad commands counted: %d" % st["commands_rejected"])
