@@ -181,6 +181,21 @@ try:
         F.check("pw-" not in daemon.log_text(), "no password in the daemon log")
         jr = os.path.join(daemon.dir, "journal")
         F.check(open(os.path.join(jr, "acked")).read().strip() == "3", "journal: every event acknowledged")
+        if tls:
+            # A CA that did not sign the broker's certificate: refused, and the log says why.
+            other = os.path.join(work, "other-ca")
+            os.makedirs(other)
+            subprocess.run(["openssl", "req", "-x509", "-newkey", "rsa:2048", "-nodes", "-days", "1", "-subj",
+                            "/CN=another CA", "-keyout", os.path.join(other, "ca.key"), "-out",
+                            os.path.join(other, "ca.crt")], check=True, capture_output=True)
+            wrong = Daemon(holdfastd, os.path.join(work, "wrong-ca"), broker, site,
+                           extra={"client_id": "holdfastd-wrong-ca", "tls_ca_file": os.path.join(other, "ca.crt")})
+            wrong.start()
+            wait_for(lambda: "TLS handshake failed" in wrong.log_text(), 30, "the TLS failure in the log")
+            lines = [l for l in wrong.log_text().splitlines() if "TLS" in l]
+            F.check(any("TLS error" in l for l in lines) or "certificate" in wrong.log_text(),
+                    "TLS failure logged with its meaning: " + " | ".join(l[-140:] for l in lines[:2]))
+            wrong.kill9()
 
     elif scenario == "broker_restart":
         first = os.path.join(work, "first.jsonl")
