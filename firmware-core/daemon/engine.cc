@@ -219,7 +219,16 @@ void Engine::NoteDataTime(double now_s) {
 }
 
 void Engine::Watchdog(double now_s) {
-  if (!connected_ || !std::isfinite(seen_newest_s_)) return;
+  if (!connected_) return;
+  if (!std::isfinite(seen_newest_s_)) {
+    // No reading yet in this run. After a resume from a checkpoint the
+    // silence counts from the first connect, with the checkpointed tick as
+    // the last data time; on a cold start there is nothing to tick.
+    const double resumed = scheduler_.last_tick_s();
+    if (!std::isfinite(resumed)) return;
+    seen_newest_s_ = resumed;
+    data_moved_wall_s_ = connected_wall_s_;
+  }
   // Silence counts from the later of the last data-time advance and the last
   // connect (while disconnected the broker queues the readings).
   const double since = std::max(data_moved_wall_s_, connected_wall_s_);

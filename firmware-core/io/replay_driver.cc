@@ -164,7 +164,13 @@ void TickScheduler::Flush(const FeedFn& feed, const AdvanceFn& advance) {
 }
 
 void TickScheduler::AdvanceIdle(double t, const FeedFn& feed, const AdvanceFn& advance) {
-  if (!std::isfinite(newest_) || !std::isfinite(t)) return;
+  if (!std::isfinite(t)) return;
+  if (!std::isfinite(first_tick_) && heap_.empty() && std::isfinite(resume_after_)) {
+    // Resumed from a checkpoint and no reading since: tick on after it.
+    first_tick_ = resume_after_ + options_.tick_s;
+    next_k_ = 0;
+  }
+  if (!std::isfinite(newest_) && !std::isfinite(first_tick_)) return;
   ReleaseUpTo(t, feed, advance);
 }
 

@@ -125,7 +125,8 @@ class TickScheduler {
   // accepted reading, as the file tick loop does.
   void Flush(const FeedFn& feed, const AdvanceFn& advance);
   // No readings are coming (the daemon's dead-feed watchdog): feeds what is
-  // buffered up to t and ticks up to t (a no-op before the first reading).
+  // buffered up to t and ticks up to t (a no-op before the first reading of
+  // a cold start; after a resume, ticks go on from the resumed tick).
   // Readings stamped before t that arrive later are late.
   void AdvanceIdle(double t, const FeedFn& feed, const AdvanceFn& advance);
   // Stops ticking (a callback may call it): nothing more is fed or ticked.

@@ -201,6 +201,38 @@ TEST(Engine, DeadFeedRaisesBalanceUnavailableWithinStalenessPlus10s) {
   std::filesystem::remove_all(dir);
 }
 
+// The feed never comes back after a restart: the watchdog ticks on from the
+// checkpointed tick, so the monitor is not silenced either.
+TEST(Engine, DeadFeedAfterARestartTicksOnFromTheCheckpoint) {
+  const std::string dir = TempDir("deadrestart");
+  {
+    Engine e;
+    std::string why;
+    ASSERT_TRUE(e.Init(Options(dir), nullptr, &why)) << why;
+    FeedUntil(&e, 1773468000.0 + 600.0);
+    ASSERT_TRUE(e.Checkpoint(&why)) << why;
+  }
+  FakeLink link;
+  Engine e;
+  std::string why;
+  ASSERT_TRUE(e.Init(Options(dir), nullptr, &why)) << why;
+  e.SetLink(&link);
+  const double wall0 = 2.0e9;
+  e.OnConnected(wall0);
+  const double resumed = e.scheduler().last_tick_s();
+  double alarm_wall = -1.0;
+  for (double w = wall0; w <= wall0 + 300.0 && alarm_wall < 0; w += 0.5) {
+    e.Poll(w);
+    for (const std::string& ev : EventPayloads(link))
+      if (ev.find("\"type\":\"balance_unavailable\"") != std::string::npos) alarm_wall = w;
+  }
+  EXPECT_TRUE(e.feed_silent());
+  EXPECT_GT(e.scheduler().last_tick_s(), resumed + 60.0);
+  ASSERT_GT(alarm_wall, 0.0) << "no balance_unavailable event";
+  std::printf("dead feed after a restart: balance_unavailable after %.1f s\n", alarm_wall - wall0);
+  std::filesystem::remove_all(dir);
+}
+
 // Issue 11, item 2: one reading stamped 5 minutes ahead and one 3 months
 // ahead change nothing: the same events, byte for byte, as without them.
 TEST(Engine, FutureStampedReadingsChangeNothing) {
