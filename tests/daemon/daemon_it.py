@@ -415,6 +415,17 @@ try:
         print("FIGURE delivery: %d events; %d lost inside the killed broker for the offline subscriber; "
               "%d lost after its replay request" % (n_events, lost_in_broker, reply["next_seq"] - 1 - len(after)))
         sub2.stop()
+        # The same catch-up from the command line.
+        cred = os.path.join(work, "alice.cred")
+        with open(cred, "w") as f:
+            f.write("alice\n%s\n" % PASSWORDS["alice"])
+        os.chmod(cred, 0o600)
+        r = subprocess.run([holdfast, "alarms", "watch", "--since-seq", "1", "--count", str(n_events), "--json",
+                            "--timeout", "60", "--broker", broker.uri(), "--prefix", PREFIX, "--credentials", cred],
+                           capture_output=True, text=True, timeout=120)
+        cli_seqs = [json.loads(l)["seq"] for l in r.stdout.splitlines() if l.strip()]
+        F.check(r.returncode == 0 and cli_seqs == list(range(1, n_events + 1)),
+                "holdfast alarms watch --since-seq 1 catches up: %s %s" % (cli_seqs, r.stderr.strip()[-200:]))
 
     elif scenario == "commands_once":
         first = os.path.join(work, "first.jsonl")
