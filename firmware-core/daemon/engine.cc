@@ -488,7 +488,8 @@ void Engine::HandleReplayRequest(std::string_view user, std::string_view payload
         ok = false;
       }
     if (req.id.empty()) error = "id: required, a string of 1 to 64 characters", ok = false;
-    if (!j["replay_from_seq"].is_number_unsigned()) error = "replay_from_seq: a sequence number >= 0", ok = false;
+    if (!j.contains("replay_from_seq") || !j["replay_from_seq"].is_number_unsigned())
+      error = "replay_from_seq: a sequence number >= 0", ok = false;
     else from = j["replay_from_seq"].get<uint64_t>();
     if (j.contains("max_events")) {
       if (!j["max_events"].is_number_unsigned() || j["max_events"].get<uint64_t>() < 1)
@@ -548,16 +549,16 @@ void Engine::LoadRecentCommands() {
                                                    content.begin() + static_cast<long>(nl), nullptr, false);
     pos = nl + 1;
     if (j.is_discarded() || !j.is_object()) continue;
-    const std::string result = j.value("result", "");
-    if (result != "applied" && result != "no_change" && result.rfind("rejected_", 0) != 0) continue;
-    if (result.rfind("rejected_", 0) == 0 && result != "rejected_not_ready") {
-      // Rejected by the alarm itself (it saw the command): remembered too;
-      // malformed or unauthorised commands never reached it.
-      if (!j.contains("segment") || j["segment"].get<std::string>().empty() || result == "rejected_bad_field" ||
-          result == "rejected_not_authorised" || result == "rejected_unknown_segment" ||
-          result == "rejected_user_mismatch" || result == "rejected_malformed_json" || result == "rejected_oversized")
-        continue;
-    }
+    if (!j.contains("result") || !j["result"].is_string()) continue;
+    const std::string result = j["result"].get<std::string>();
+    // Commands the alarm saw (applied, no change, or refused by its state
+    // machine); malformed, unauthorised or not-ready ones never reached it.
+    const bool reached = result == "applied" || result == "no_change" ||
+                         (result.rfind("rejected_", 0) == 0 && result != "rejected_not_ready" &&
+                          result != "rejected_bad_field" && result != "rejected_not_authorised" &&
+                          result != "rejected_unknown_segment" && result != "rejected_user_mismatch" &&
+                          result != "rejected_malformed_json" && result != "rejected_oversized");
+    if (!reached) continue;
     double wall = 0.0;
     if (!j.contains("wall_time") || !j["wall_time"].is_string() || !ParseTime(j["wall_time"].get<std::string>(), &wall))
       continue;

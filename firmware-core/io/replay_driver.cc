@@ -33,6 +33,7 @@ void TickScheduler::Init(const Options& options, double resume_after_s) {
   options_ = options;
   heap_ = {};
   quarantine_.clear();
+  quarantine_min_ = kNaN;
   order_ = 0;
   resume_after_ = resume_after_s;
   newest_ = first_tick_ = kNaN;
@@ -69,12 +70,14 @@ void TickScheduler::Add(const Reading& r) {
   if (std::isfinite(now) && r.time_s <= now + options_.max_lead_s) {
     Accept(r);
     // Quarantined readings the clock has caught up with are dropped: they
-    // were stamped ahead by a wrong clock.
-    if (!quarantine_.empty()) {
+    // were stamped ahead by a wrong clock. (Scanned only when the clock has
+    // reached the earliest of them.)
+    if (!quarantine_.empty() && data_time_s() + options_.max_lead_s >= quarantine_min_) {
       const double limit = data_time_s() + options_.max_lead_s;
       quarantine_.erase(std::remove_if(quarantine_.begin(), quarantine_.end(),
                                        [&](const Reading& q) { return q.time_s <= limit; }),
                         quarantine_.end());
+      UpdateQuarantineMin();
     }
     return;
   }
@@ -85,6 +88,7 @@ void TickScheduler::Quarantine(const Reading& r) {
   ++quarantined_;
   quarantine_.push_back(r);
   if (quarantine_.size() > options_.quarantine_capacity) quarantine_.pop_front();
+  UpdateQuarantineMin();
   // Do enough different points agree with this reading's time?
   const double lead = options_.max_lead_s;
   scratch_points_.clear();
@@ -116,6 +120,13 @@ void TickScheduler::Quarantine(const Reading& r) {
       quarantine_.push_back(q);
     }
   }
+  UpdateQuarantineMin();
+}
+
+void TickScheduler::UpdateQuarantineMin() {
+  quarantine_min_ = kNaN;
+  for (const Reading& q : quarantine_)
+    if (!(q.time_s >= quarantine_min_)) quarantine_min_ = q.time_s;
 }
 
 // Advances every tick T < t (inclusive: T <= t).

@@ -160,12 +160,14 @@ class TickScheduler {
   double GridCeil(double t) const;
   void Accept(const Reading& r);
   void Quarantine(const Reading& r);
+  void UpdateQuarantineMin();
   void AdvanceBefore(double t, bool inclusive, const AdvanceFn& advance);
   void ReleaseUpTo(double w, const FeedFn& feed, const AdvanceFn& advance);
 
   Options options_;
   std::priority_queue<Item, std::vector<Item>, Later> heap_;
   std::deque<Reading> quarantine_;
+  double quarantine_min_ = kNaN;  // earliest time in the quarantine
   std::vector<int32_t> scratch_points_;
   uint64_t order_ = 0;
   double resume_after_ = kNaN;
