@@ -1,5 +1,5 @@
 // The one tick loop of every file-driven tool (`holdfast balance`, `replay`,
-// `tune`, and later the daemon's file input): readings from a source are fed
+// `tune`, `evaluate`; holdfastd through TickScheduler below): readings from a source are fed
 // to a Monitor, and the monitor is advanced on the site's tick grid.
 //
 //   holdfast::ReadingsCsvReader reader;   reader.Open(path, site, &why);
