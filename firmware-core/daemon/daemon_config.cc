@@ -1,6 +1,10 @@
 #include "daemon_config.h"
 
 #include <sys/stat.h>
+#include <unistd.h>
+
+#include <algorithm>
+#include <cstdint>
 
 #include <cerrno>
 #include <cmath>
@@ -58,8 +62,21 @@ bool DaemonOptions::IsValid(std::string* why) const {
   };
   if (!positive(keep_alive_s, "keep_alive_s") || !positive(checkpoint_period_s, "checkpoint_period_s") ||
       !positive(status_period_s, "status_period_s") || !positive(heartbeat_period_s, "heartbeat_period_s") ||
-      !positive(max_tick_gap_s, "max_tick_gap_s"))
+      !positive(max_tick_gap_s, "max_tick_gap_s") || !positive(journal_history_days, "journal_history_days") ||
+      !positive(command_dedup_s, "command_dedup_s"))
     return false;
+  if (!(max_lead_s >= 0.0) || !std::isfinite(max_lead_s)) return fail("max_lead_s: must be >= 0 seconds (0: off)");
+  if (max_lead_s > 0.0 && max_lead_s < tick_lateness_s)
+    return fail("max_lead_s: must be at least tick_lateness_s (the reorder window)");
+  if (lead_quorum_points < 1 || lead_quorum_points > 1000) return fail("lead_quorum_points: 1 to 1000");
+  if (!(feed_silence_s >= 0.0) || !std::isfinite(feed_silence_s))
+    return fail("feed_silence_s: must be >= 0 seconds (0: the largest point staleness)");
+  if (journal_history_bytes > (1ull << 32)) return fail("journal_history_bytes: at most 4294967296");
+  if (!(commands_per_minute > 0.0) || !std::isfinite(commands_per_minute))
+    return fail("commands_per_minute: must be positive");
+  if (!(command_burst >= 1.0) || !std::isfinite(command_burst)) return fail("command_burst: must be at least 1");
+  if (audit_max_bytes < 4096) return fail("audit_max_bytes: at least 4096");
+  if (audit_keep < 1 || audit_keep > 100) return fail("audit_keep: 1 to 100");
   if (!(tick_lateness_s >= 0.0) || !std::isfinite(tick_lateness_s))
     return fail("tick_lateness_s: must be >= 0 seconds");
   if (!(max_future_s >= 0.0) || !std::isfinite(max_future_s)) return fail("max_future_s: must be >= 0 seconds");
@@ -109,7 +126,9 @@ bool LoadDaemonConfig(const std::string& path, DaemonOptions* options, std::stri
       "format", "site_file", "tuning_file", "broker_uri", "client_id", "credentials_file", "tls_ca_file",
       "tls_cert_file", "tls_key_file", "keep_alive_s", "topic_prefix", "journal_dir", "state_dir",
       "checkpoint_period_s", "status_period_s", "heartbeat_period_s", "tick_lateness_s", "max_future_s",
-      "max_tick_gap_s", "max_payload_bytes", "max_batch", "queue_capacity", "operators", "comment"};
+      "max_tick_gap_s", "max_payload_bytes", "max_batch", "queue_capacity", "operators", "comment",
+      "max_lead_s", "lead_quorum_points", "feed_silence_s", "journal_history_days", "journal_history_bytes",
+      "command_dedup_s", "commands_per_minute", "command_burst", "audit_max_bytes", "audit_keep"};
   for (auto it = doc.begin(); it != doc.end(); ++it)
     if (!known.count(it.key())) problem(it.key(), "unknown key");
   get_string("site_file", &o.site_file, true);
@@ -133,6 +152,22 @@ bool LoadDaemonConfig(const std::string& path, DaemonOptions* options, std::stri
   get_size("max_payload_bytes", &o.max_payload_bytes);
   get_size("max_batch", &o.max_batch);
   get_size("queue_capacity", &o.queue_capacity);
+  get_number("max_lead_s", &o.max_lead_s);
+  if (doc.contains("lead_quorum_points")) {
+    if (!doc["lead_quorum_points"].is_number_unsigned()) problem("lead_quorum_points", "must be a positive integer");
+    else o.lead_quorum_points = static_cast<int>(std::min<uint64_t>(doc["lead_quorum_points"].get<uint64_t>(), 100000));
+  }
+  get_number("feed_silence_s", &o.feed_silence_s);
+  get_number("journal_history_days", &o.journal_history_days);
+  get_size("journal_history_bytes", &o.journal_history_bytes);
+  get_number("command_dedup_s", &o.command_dedup_s);
+  get_number("commands_per_minute", &o.commands_per_minute);
+  get_number("command_burst", &o.command_burst);
+  get_size("audit_max_bytes", &o.audit_max_bytes);
+  if (doc.contains("audit_keep")) {
+    if (!doc["audit_keep"].is_number_unsigned()) problem("audit_keep", "must be a positive integer");
+    else o.audit_keep = static_cast<int>(std::min<uint64_t>(doc["audit_keep"].get<uint64_t>(), 1000));
+  }
   if (doc.contains("operators")) {
     if (!doc["operators"].is_array()) {
       problem("operators", "must be an array of user names");
@@ -167,6 +202,13 @@ bool ReadCredentialsFile(const std::string& path, Credentials* out, std::string*
   }
   if (!S_ISREG(st.st_mode)) {
     if (why) *why = path + ": the credentials file is not a regular file";
+    return false;
+  }
+  if (st.st_uid != ::geteuid()) {
+    if (why)
+      *why = path + ": the credentials file is owned by uid " + std::to_string(st.st_uid) +
+             ", not by the user the daemon runs as (uid " + std::to_string(::geteuid()) +
+             "); chown it to the service user";
     return false;
   }
   if ((st.st_mode & 077) != 0) {

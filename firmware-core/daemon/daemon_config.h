@@ -56,6 +56,35 @@ struct DaemonOptions {
   // A jump of data time beyond this is not stepped tick by tick: the monitor
   // jumps to the new time (one tick) so that a bad clock cannot stall it.
   double max_tick_gap_s = 6.0 * 3600.0;
+  // Lead guard (io/replay_driver.h, TickScheduler): a reading stamped more
+  // than this ahead of data time is quarantined and counted and never moves
+  // the clock, unless lead_quorum_points different points agree on the new
+  // time. 0 disables the guard.
+  double max_lead_s = 60.0;
+  int lead_quorum_points = 2;
+  // Dead-feed watchdog (wall clock): when data time has not advanced for
+  // this long while connected, the feed is declared silent (status and
+  // heartbeat say since when) and the monitor is ticked on with the wall
+  // clock, so that its staleness rules raise balance_unavailable and
+  // data_quality. 0: the largest staleness_s of the site's points.
+  double feed_silence_s = 0.0;
+
+  // Journal history: acknowledged events stay this long (wall clock, days)
+  // and within this many bytes, for replay-by-sequence requests.
+  double journal_history_days = 7.0;
+  std::size_t journal_history_bytes = 16u << 20;
+
+  // Commands: a command id seen from the same user within this window is
+  // not applied again (answered as a duplicate); each user may send this
+  // many commands per minute, with bursts up to command_burst (more are
+  // dropped and counted, without an audit write each).
+  double command_dedup_s = 3600.0;
+  double commands_per_minute = 30.0;
+  double command_burst = 10.0;
+  // Audit log rotation: audit.jsonl is moved to audit.jsonl.1 (.1 to .2, ...)
+  // beyond this size; audit_keep rotated files are kept.
+  std::size_t audit_max_bytes = 1u << 20;
+  int audit_keep = 3;
 
   // Input limits.
   std::size_t max_payload_bytes = 64 * 1024;
@@ -81,7 +110,8 @@ struct Credentials {
 
 // Reads a credentials file: line 1 the user name, line 2 the password.
 // Refuses (false, with the reason, never the content) a file that is not a
-// regular file or that group or others can read, write or execute.
+// regular file, that is not owned by the user the daemon runs as, or that
+// group or others can read, write or execute.
 bool ReadCredentialsFile(const std::string& path, Credentials* out, std::string* why);
 
 }  // namespace holdfast::daemon

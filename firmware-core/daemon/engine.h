@@ -12,8 +12,12 @@
 // sequence number (consumers de-duplicate by (segment, seq)).
 #pragma once
 
+#include <cmath>
 #include <cstdint>
 #include <cstdio>
+#include <deque>
+#include <unordered_map>
+#include <utility>
 #include <memory>
 #include <string>
 #include <string_view>
@@ -55,6 +59,12 @@ struct EngineCounters {
   uint64_t readings_accepted = 0;
   std::array<uint64_t, kRejectCount> readings_rejected{};
   uint64_t commands = 0, commands_applied = 0, commands_rejected = 0;
+  // Commands not applied: retained ones (delivered again at every connect),
+  // repeats of an id within the dedup window, over a user's rate limit.
+  uint64_t commands_retained_ignored = 0, commands_duplicate = 0, commands_rate_limited = 0;
+  uint64_t replay_requests = 0, events_replayed = 0;
+  uint64_t feed_silences = 0;  // times the dead-feed watchdog declared the feed silent
+  uint64_t idle_ticks = 0;     // ticks run by the watchdog without readings
   uint64_t events = 0, events_published = 0, events_acked = 0, events_republished = 0;
   uint64_t checkpoints = 0, checkpoint_failures = 0, journal_failures = 0;
   // Wall time of Monitor::Advance (one tick of every segment: the decision
@@ -77,7 +87,9 @@ class Engine {
   void SetLink(Link* link) { link_ = link; }
 
   // An MQTT message on one of the daemon's subscriptions; now_s is wall time.
-  void OnMessage(std::string_view topic, std::string_view payload, double now_s);
+  // `retained`: the broker delivered it from its retained store (a command
+  // so delivered is ignored and audited as such).
+  void OnMessage(std::string_view topic, std::string_view payload, double now_s, bool retained = false);
   // Readings from a file source (already resolved to point indexes).
   void OnReading(const Reading& r);
   // Runs the ticks the watermark allows and flushes their events.
@@ -94,8 +106,15 @@ class Engine {
   // The last-will document (retained on P/daemon when the link drops).
   std::string OfflineJson(std::string_view reason) const;
 
-  // Periodic work by wall clock: heartbeat, segment status, checkpoint.
+  // Periodic work by wall clock: heartbeat, segment status, checkpoint, and
+  // the dead-feed watchdog (feed_silence_s): while connected and data time
+  // has not advanced for that long, the feed is silent and the monitor is
+  // ticked on with the wall clock (data time = newest reading + wall time
+  // since it arrived), so that the core's staleness rules raise
+  // balance_unavailable and data_quality through the journal path.
   void Poll(double now_s);
+  bool feed_silent() const { return feed_silent_; }
+  double feed_silence_s() const { return feed_silence_s_; }
   // Checkpoint now (on shutdown).
   bool Checkpoint(std::string* why);
   // Without a broker: events are written here (JSON Lines) and retired.
@@ -108,17 +127,33 @@ class Engine {
   const TickScheduler& scheduler() const { return scheduler_; }
   const PointIndex& points() const { return points_; }
   std::string StatusJson(std::string_view state, double now_s) const;
+  std::string FeedJson() const;
 
  private:
   class Collector;
   void TimedAdvance(double t);
   void HandleReadings(std::string_view topic_point, std::string_view payload, double now_s);
-  void HandleCommand(std::string_view user, std::string_view payload, double now_s);
+  void HandleCommand(std::string_view user, std::string_view payload, double now_s, bool retained);
+  void HandleReplayRequest(std::string_view user, std::string_view payload, double now_s);
+  bool RateAllow(std::string_view user, double now_s);
+  void Watchdog(double now_s);
+  void NoteDataTime(double now_s);
+  void LoadRecentCommands();
+  void WriteAuditLine(const std::string& line);
   void FlushEvents();
   void PublishRecord(const JournalRecord& r);
   void PublishAlarmStates(const std::vector<bool>& segments);
   void Log(const char* fmt, ...) __attribute__((format(printf, 2, 3)));
   void Audit(const CommandRequest& req, std::string_view result, std::string_view error, double now_s);
+
+  struct Bucket {
+    double tokens = 0.0, last_s = 0.0;
+    uint64_t dropped = 0;
+  };
+  struct SeenCommand {
+    double wall_s = 0.0;
+    std::string result;
+  };
 
   DaemonOptions options_;
   std::FILE* log_ = nullptr;
@@ -142,6 +177,18 @@ class Engine {
   double last_now_s_ = 0.0;
   uint64_t heartbeat_count_ = 0;
   bool dirty_ = false;  // ticks since the last checkpoint
+  // Dead-feed watchdog.
+  double feed_silence_s_ = 60.0;
+  double seen_newest_s_ = std::nan("");     // newest data time seen (scheduler)
+  double data_moved_wall_s_ = 0.0;          // wall time data time last moved
+  double connected_wall_s_ = 0.0;           // wall time of the last connect
+  bool feed_silent_ = false;
+  double silent_since_wall_s_ = 0.0;
+  // Commands exactly once.
+  std::unordered_map<std::string, Bucket> buckets_;
+  std::unordered_map<std::string, SeenCommand> seen_commands_;  // "user\nid"
+  std::deque<std::pair<double, std::string>> seen_order_;       // (wall_s, key), oldest first
+  uint64_t audit_bytes_ = 0;
 };
 
 }  // namespace holdfast::daemon

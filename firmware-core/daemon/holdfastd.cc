@@ -52,16 +52,40 @@ struct Item {
   enum Kind { kMessage, kConnected, kConnectFailed, kLost, kAcked, kPublishFailed } kind = kMessage;
   std::string topic, payload;
   uint64_t seq = 0;
+  bool retained = false;
 };
+
+// What a failed connect means, for the log (the Paho return code alone says
+// little): MQTT 3.1.1 CONNACK codes (OASIS MQTT 3.1.1, section 3.2.2.3) and
+// the Paho C client's own codes (MQTTAsync.h).
+std::string ConnectFailureText(int rc, bool tls) {
+  switch (rc) {
+    case 1: return "the broker refused the MQTT protocol version (CONNACK 1)";
+    case 2: return "the broker rejected the client id (CONNACK 2; another daemon with the same client_id?)";
+    case 3: return "the broker is unavailable (CONNACK 3)";
+    case 4: return "authentication failed: the broker refused the user name or password (CONNACK 4; check credentials_file)";
+    case 5:
+      return "not authorised: the broker refused this client's credentials (CONNACK 5: a wrong user name or "
+             "password, or a user or certificate the broker does not admit; check credentials_file)";
+    case -1:
+      return tls ? "connection failed: TCP refused, or the TLS handshake failed (certificate, CA or host name; see "
+                   "any TLS error above), or the broker closed the connection (return code -1)"
+                 : "connection failed: TCP refused or closed by the broker (return code -1)";
+    case -3: return "disconnected (return code -3)";
+    case -13: return "TLS is not supported by this Paho build (return code -13)";
+    case -14: return "bad protocol in broker_uri (return code -14)";
+    default: return "return code " + std::to_string(rc);
+  }
+}
 
 using Queue = BoundedQueue<Item>;
 
 class Callbacks final : public mqtt::callback {
  public:
   explicit Callbacks(Queue* q) : q_(q) {}
-  void connection_lost(const std::string&) override { q_->Push(Item{Item::kLost, {}, {}, 0}); }
+  void connection_lost(const std::string& cause) override { q_->Push(Item{Item::kLost, {}, cause, 0}); }
   void message_arrived(mqtt::const_message_ptr msg) override {
-    q_->Push(Item{Item::kMessage, msg->get_topic(), msg->to_string(), 0});
+    q_->Push(Item{Item::kMessage, msg->get_topic(), msg->to_string(), 0, msg->is_retained()});
   }
 
  private:
@@ -86,14 +110,15 @@ class AckListener final : public mqtt::iaction_listener {
 
 class ConnectListener final : public mqtt::iaction_listener {
  public:
-  explicit ConnectListener(Queue* q) : q_(q) {}
+  ConnectListener(Queue* q, bool tls) : q_(q), tls_(tls) {}
   void on_success(const mqtt::token&) override { q_->Push(Item{Item::kConnected, {}, {}, 0}); }
   void on_failure(const mqtt::token& tok) override {
-    q_->Push(Item{Item::kConnectFailed, {}, "return code " + std::to_string(tok.get_return_code()), 0});
+    q_->Push(Item{Item::kConnectFailed, {}, ConnectFailureText(tok.get_return_code(), tls_), 0});
   }
 
  private:
   Queue* q_;
+  bool tls_;
 };
 
 class PahoLink final : public Link {
@@ -177,9 +202,12 @@ int RunFile(Engine* engine, const std::string& path) {
   engine->SetEventStream(stdout);
   Reading r;
   uint64_t n = 0;
+  // A release after every reading, as `holdfast replay` and `balance` do:
+  // the result depends only on the readings and their order.
   while (!g_stop && reader.Next(&r)) {
     engine->OnReading(r);
-    if (++n % 256 == 0) engine->Step();
+    engine->Step();
+    ++n;
   }
   engine->Flush();
   if (!engine->Checkpoint(&why)) std::fprintf(stderr, "holdfastd: checkpoint failed: %s\n", why.c_str());
@@ -198,18 +226,21 @@ int RunBroker(Engine* engine, const DaemonOptions& o) {
   Queue queue(o.queue_capacity);
   Callbacks callbacks(&queue);
   AckListener acks(&queue);
-  ConnectListener connect_listener(&queue);
+  ConnectListener connect_listener(&queue, o.broker_uri.rfind("ssl://", 0) == 0);
   mqtt::async_client client(o.broker_uri, o.client_id);
   client.set_callback(callbacks);
   PahoLink link(&client, &acks);
   engine->SetLink(&link);
 
   mqtt::connect_options opts;
-  // A clean session on every connect: the daemon re-subscribes each time and
-  // republishes its journal itself, so it needs no broker-side session
-  // state. Readings published while the daemon is disconnected are therefore
-  // not queued for it: the balance treats them as a gap (config/DAEMON.md).
-  opts.set_clean_session(true);
+  // A persistent session (clean session off) with QoS 1 subscriptions: the
+  // broker queues the readings and commands published while the daemon is
+  // disconnected or restarting and delivers them on reconnect (within the
+  // broker's max_queued_messages; config/DAEMON.md). The daemon subscribes
+  // again at every connect all the same (harmless, and needed when the
+  // broker lost the session). Its own events do not depend on the session:
+  // the journal republishes every unacknowledged one.
+  opts.set_clean_session(false);
   opts.set_keep_alive_interval(static_cast<int>(o.keep_alive_s));
   opts.set_connect_timeout(static_cast<int>(kConnectTimeout_s));
   opts.set_max_inflight(1024);
@@ -228,6 +259,10 @@ int RunBroker(Engine* engine, const DaemonOptions& o) {
     }
     ssl.set_enable_server_cert_auth(true);
     ssl.set_verify(true);  // the certificate must name the host connected to
+    // OpenSSL's own words for a failed handshake (called on a Paho thread).
+    ssl.set_error_handler([](const std::string& msg) {
+      std::fprintf(stderr, "holdfastd: TLS error: %s\n", msg.c_str());
+    });
     opts.set_ssl(ssl);
   }
   std::fprintf(stderr, "holdfastd: broker %s as client %s%s%s, topics under %s/\n", o.broker_uri.c_str(),
@@ -261,7 +296,7 @@ int RunBroker(Engine* engine, const DaemonOptions& o) {
       do {
         const double t = WallNow();
         switch (item.kind) {
-          case Item::kMessage: engine->OnMessage(item.topic, item.payload, t); break;
+          case Item::kMessage: engine->OnMessage(item.topic, item.payload, t, item.retained); break;
           case Item::kConnected:
             if (state != LinkState::kConnected) {
               state = LinkState::kConnected;
@@ -289,7 +324,8 @@ int RunBroker(Engine* engine, const DaemonOptions& o) {
             if (state == LinkState::kConnected) {
               engine->OnDisconnected();
               backoff_s = kReconnectMin_s;
-              schedule_retry(t, "connection lost");
+              schedule_retry(t, item.payload.empty() ? std::string("connection lost")
+                                                     : "connection lost: " + item.payload);
             }
             break;
           case Item::kAcked: engine->OnAcked(item.seq); break;
@@ -371,5 +407,8 @@ int main(int argc, char** argv) {
     return 0;
   }
   if (!input.empty()) return RunFile(&engine, input);
+  // The dead-feed watchdog's limit, for the operator reading the log.
+  std::fprintf(stderr, "holdfastd: feed declared silent after %.0f s without a reading that moves data time\n",
+               engine.feed_silence_s());
   return RunBroker(&engine, options);
 }

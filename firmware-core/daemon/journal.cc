@@ -7,6 +7,7 @@
 #include <array>
 #include <cerrno>
 #include <cinttypes>
+#include <cmath>
 #include <cstdio>
 #include <cstdlib>
 #include <cstring>
@@ -102,8 +103,9 @@ void Journal::Format(const JournalRecord& r, std::string* out) {
   std::string body = r.topic;
   body.push_back('\t');
   body += r.payload;
-  char head[80];
-  std::snprintf(head, sizeof head, "J1 %" PRIu64 " %08" PRIx32 " %zu ", r.seq, Crc32(body), body.size());
+  char head[112];
+  const double t = std::isfinite(r.appended_s) && r.appended_s > 0.0 ? r.appended_s : 0.0;
+  std::snprintf(head, sizeof head, "J2 %" PRIu64 " %08" PRIx32 " %zu %.0f ", r.seq, Crc32(body), body.size(), t);
   out->append(head);
   out->append(body);
   out->push_back('\n');
@@ -115,6 +117,9 @@ bool Journal::Open(const Options& options, std::string* why) {
   fd_ = -1;
   options_ = options;
   pending_.clear();
+  history_.clear();
+  history_bytes_ = 0;
+  newest_appended_s_ = 0.0;
   acked_through_ = max_seq_ = dropped_tail_bytes_ = 0;
   retired_in_file_ = 0;
   if (!MakeDirs(options.dir, why)) return false;
@@ -139,25 +144,26 @@ bool Journal::Open(const Options& options, std::string* why) {
     if (nl == std::string::npos) break;  // torn: no newline
     const std::string_view line(content.data() + pos, nl - pos);
     size_t p = 0;
-    uint64_t seq = 0, crc = 0, len = 0;
-    if (line.compare(0, 3, "J1 ") != 0) break;
+    uint64_t seq = 0, crc = 0, len = 0, appended = 0;
+    const bool v2 = line.compare(0, 3, "J2 ") == 0;
+    if (!v2 && line.compare(0, 3, "J1 ") != 0) break;
     p = 3;
     if (!Field(line, &p, ' ', 10, &seq) || !Field(line, &p, ' ', 16, &crc) || !Field(line, &p, ' ', 10, &len))
       break;
+    if (v2 && !Field(line, &p, ' ', 10, &appended)) break;
     const std::string_view body = line.substr(p);
     if (body.size() != len || Crc32(body) != crc || seq <= max_seq_) break;
     const size_t tab = body.find('\t');
     if (tab == std::string_view::npos) break;
     max_seq_ = seq;
-    if (seq > acked_through_) {
-      Entry e;
-      e.record.seq = seq;
-      e.record.topic = std::string(body.substr(0, tab));
-      e.record.payload = std::string(body.substr(tab + 1));
-      pending_.push_back(std::move(e));
-    } else {
-      ++retired_in_file_;
-    }
+    JournalRecord rec;
+    rec.seq = seq;
+    rec.topic = std::string(body.substr(0, tab));
+    rec.payload = std::string(body.substr(tab + 1));
+    rec.appended_s = static_cast<double>(appended);
+    if (rec.appended_s > newest_appended_s_) newest_appended_s_ = rec.appended_s;
+    if (seq > acked_through_) pending_.push_back(Entry{std::move(rec), false});
+    else AddHistory(std::move(rec));
     pos = nl + 1;
     good_end = pos;
   }
@@ -197,7 +203,10 @@ bool Journal::Append(const std::vector<JournalRecord>& records, std::string* why
     if (why) *why = path_ + ": cannot append: " + std::strerror(errno);
     return false;
   }
-  for (const JournalRecord& r : records) pending_.push_back(Entry{r, false});
+  for (const JournalRecord& r : records) {
+    pending_.push_back(Entry{r, false});
+    if (r.appended_s > newest_appended_s_) newest_appended_s_ = r.appended_s;
+  }
   max_seq_ = last;
   return true;
 }
@@ -227,8 +236,10 @@ bool Journal::Commit(std::string* why) {
   if (popped == 0) return true;
   // The marker first: if it cannot be written the records stay pending.
   if (!WriteFileAtomic(marker_path_, std::to_string(through) + "\n", why)) return false;
-  for (std::size_t i = 0; i < popped; ++i) pending_.pop_front();
-  retired_in_file_ += popped;
+  for (std::size_t i = 0; i < popped; ++i) {
+    AddHistory(std::move(pending_.front().record));
+    pending_.pop_front();
+  }
   acked_through_ = through;
   if (retired_in_file_ >= options_.compact_after) return Compact(why);
   return true;
@@ -236,6 +247,7 @@ bool Journal::Commit(std::string* why) {
 
 bool Journal::Compact(std::string* why) {
   std::string content;
+  for (const JournalRecord& r : history_) Format(r, &content);
   for (const Entry& e : pending_) Format(e.record, &content);
   if (!WriteFileAtomic(path_, content, why)) return false;
   if (fd_ >= 0) ::close(fd_);
@@ -247,6 +259,48 @@ bool Journal::Compact(std::string* why) {
   retired_in_file_ = 0;
   ++compactions_;
   return true;
+}
+
+void Journal::AddHistory(JournalRecord r) {
+  history_bytes_ += r.topic.size() + r.payload.size();
+  history_.push_back(std::move(r));
+  // Out of the history: beyond the byte budget, or appended more than
+  // history_s before the newest record (records of unknown age count as old
+  // only by size).
+  while (!history_.empty()) {
+    const JournalRecord& o = history_.front();
+    const bool too_big = history_bytes_ > options_.history_bytes;
+    const bool too_old = o.appended_s > 0.0 && newest_appended_s_ - o.appended_s > options_.history_s;
+    if (!too_big && !too_old) break;
+    history_bytes_ -= o.topic.size() + o.payload.size();
+    history_.pop_front();
+    ++retired_in_file_;
+  }
+}
+
+std::size_t Journal::Since(uint64_t from_seq, std::size_t max_count, std::vector<JournalRecord>* out) const {
+  std::size_t n = 0;
+  for (const JournalRecord& r : history_) {
+    if (n >= max_count) return n;
+    if (r.seq >= from_seq) {
+      out->push_back(r);
+      ++n;
+    }
+  }
+  for (const Entry& e : pending_) {
+    if (n >= max_count) return n;
+    if (e.record.seq >= from_seq) {
+      out->push_back(e.record);
+      ++n;
+    }
+  }
+  return n;
+}
+
+uint64_t Journal::oldest_kept_seq() const {
+  if (!history_.empty()) return history_.front().seq;
+  if (!pending_.empty()) return pending_.front().record.seq;
+  return 0;
 }
 
 }  // namespace holdfast::daemon

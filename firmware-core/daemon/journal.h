@@ -3,9 +3,12 @@
 //
 // Files in the journal directory:
 //   events.journal  append-only, one record per line:
-//                     J1 <seq> <crc32, 8 hex digits> <length> <topic>\t<payload>\n
+//                     J2 <seq> <crc32, 8 hex digits> <length> <appended> <topic>\t<payload>\n
 //                   crc32 (IEEE 802.3) and length cover "<topic>\t<payload>";
-//                   fsync'ed after every append, before the event is published.
+//                   <appended> is the wall time of the append (epoch s, 0 when
+//                   not known); fsync'ed after every append, before the event
+//                   is published. Records of the first format ("J1", without
+//                   <appended>) are still read.
 //   acked           "<seq>\n": every record up to seq has been acknowledged by
 //                   the broker (PUBACK). Written atomically (atomic_file.h).
 //
@@ -14,8 +17,14 @@
 // damaged (length or checksum wrong): that tail is dropped and counted. A
 // record is retired when the broker acknowledged it; the marker moves over
 // the longest acknowledged prefix, so retirement is in order even when
-// acknowledgements are not. When enough retired records have piled up the
-// journal is rewritten (atomically) with only the pending ones: compaction.
+// acknowledgements are not.
+//
+// History: retired records stay in the file (and in memory) for
+// history_s of wall time and within history_bytes, so that a client that
+// missed events (e.g. inside a broker that crashed before saving them) can
+// ask for them again by sequence number (Since). When enough records have
+// fallen out of the history the journal is rewritten (atomically) with the
+// history and the pending records: compaction.
 #pragma once
 
 #include <cstdint>
@@ -34,6 +43,7 @@ struct JournalRecord {
   uint64_t seq = 0;  // the event's sequence number, strictly increasing
   std::string topic;
   std::string payload;
+  double appended_s = 0.0;  // wall time of the append (epoch s); 0: not known
 };
 
 // CRC-32 (IEEE 802.3, reflected, polynomial 0xEDB88320) of `data`.
@@ -48,7 +58,9 @@ class Journal {
 
   struct Options {
     std::string dir;                // created if missing
-    std::size_t compact_after = 256;  // retired records in the file before a rewrite
+    std::size_t compact_after = 256;  // records out of the history before a rewrite
+    double history_s = 7.0 * 86400.0;          // retired records kept this long (wall clock)
+    std::size_t history_bytes = 16u << 20;     // and within this many bytes (topic + payload)
     bool IsValid(std::string* why) const;
   };
 
@@ -72,6 +84,14 @@ class Journal {
   const JournalRecord& pending(std::size_t i) const { return pending_[i].record; }
   bool pending_acked(std::size_t i) const { return pending_[i].acked; }
 
+  // Records with seq >= from_seq (history and pending), oldest first, at most
+  // max_count; returns how many were appended to *out.
+  std::size_t Since(uint64_t from_seq, std::size_t max_count, std::vector<JournalRecord>* out) const;
+  // The oldest sequence number still kept (history or pending); 0 when none.
+  uint64_t oldest_kept_seq() const;
+  std::size_t history_count() const { return history_.size(); }
+  std::size_t history_bytes() const { return history_bytes_; }
+
   uint64_t acked_through() const { return acked_through_; }
   uint64_t max_seq() const { return max_seq_; }
   uint64_t dropped_tail_bytes() const { return dropped_tail_bytes_; }
@@ -84,15 +104,19 @@ class Journal {
     bool acked = false;
   };
   bool Compact(std::string* why);
+  void AddHistory(JournalRecord r);
   static void Format(const JournalRecord& r, std::string* out);
 
   Options options_;
   std::string path_, marker_path_;
   int fd_ = -1;
   std::deque<Entry> pending_;
+  std::deque<JournalRecord> history_;  // retired, oldest first
+  std::size_t history_bytes_ = 0;
+  double newest_appended_s_ = 0.0;
   uint64_t acked_through_ = 0, max_seq_ = 0;
   uint64_t dropped_tail_bytes_ = 0, compactions_ = 0;
-  std::size_t retired_in_file_ = 0;
+  std::size_t retired_in_file_ = 0;  // records in the file that left the history
 };
 
 }  // namespace holdfast::daemon

@@ -1,5 +1,8 @@
 #include "payload.h"
 
+#include <cctype>
+#include <cstdlib>
+
 #include <cmath>
 
 #include <nlohmann/json.hpp>
@@ -122,6 +125,11 @@ void ParseItem(const nlohmann::json& j, const std::string& where, std::string_vi
       r.time_s > ctx->limits.now_s + ctx->limits.max_future_s)
     return ctx->Fail(Reject::kAbsurdTime, where + ".time", "ahead of the daemon's clock");
   const auto& v = j["value"];
+  if (v.is_string()) {
+    const std::string& vs = v.get_ref<const std::string&>();
+    if (vs == "NaN" || vs == "nan" || vs == "Infinity" || vs == "-Infinity" || vs == "inf" || vs == "-inf")
+      return ctx->Fail(Reject::kNotFinite, where + ".value", "\"" + vs + "\" is not a finite number");
+  }
   if (!v.is_number()) return ctx->Fail(Reject::kWrongType, where + ".value", "must be a number");
   r.value = v.get<double>();
   if (!std::isfinite(r.value)) return ctx->Fail(Reject::kNotFinite, where + ".value", "not finite");
@@ -133,6 +141,38 @@ void ParseItem(const nlohmann::json& j, const std::string& where, std::string_vi
   }
   ctx->out->push_back(r);
   ++ctx->result->accepted;
+}
+
+// True when a payload that is not valid JSON holds a non-finite number: a
+// NaN or Infinity token outside strings, or a number literal beyond the
+// range of a double (1e999). Such a reading is counted as not_finite, not as
+// malformed JSON: the sender has a value, and it is not a number.
+bool HasNonFiniteToken(std::string_view p) {
+  bool in_string = false;
+  for (size_t i = 0; i < p.size(); ++i) {
+    const char c = p[i];
+    if (in_string) {
+      if (c == '\\') ++i;
+      else if (c == '"') in_string = false;
+      continue;
+    }
+    if (c == '"') {
+      in_string = true;
+    } else if (p.compare(i, 3, "NaN") == 0 || p.compare(i, 8, "Infinity") == 0) {
+      return true;
+    } else if ((c == '-' || (c >= '0' && c <= '9')) && (i == 0 || !std::isalnum(static_cast<unsigned char>(p[i - 1])))) {
+      size_t j = i + 1;
+      while (j < p.size() && (std::isdigit(static_cast<unsigned char>(p[j])) || p[j] == '.' || p[j] == 'e' ||
+                              p[j] == 'E' || p[j] == '+' || p[j] == '-'))
+        ++j;
+      if (j - i < 64) {
+        const std::string num(p.substr(i, j - i));
+        if (std::isinf(std::strtod(num.c_str(), nullptr))) return true;
+      }
+      i = j - 1;
+    }
+  }
+  return false;
 }
 
 }  // namespace
@@ -152,7 +192,10 @@ ParseResult ParseReadings(std::string_view payload, std::string_view topic_point
   }
   const nlohmann::json doc = nlohmann::json::parse(payload.begin(), payload.end(), nullptr, false);
   if (doc.is_discarded()) {
-    ctx.Fail(Reject::kMalformedJson, "", "not valid JSON");
+    if (HasNonFiniteToken(payload))
+      ctx.Fail(Reject::kNotFinite, "", "a NaN or infinite number (JSON cannot carry one)");
+    else
+      ctx.Fail(Reject::kMalformedJson, "", "not valid JSON");
     return result;
   }
   if (doc.is_object()) {

@@ -42,6 +42,7 @@ struct AlarmsArgs {
   double duration_s = 0.0;
   double timeout_s = 15.0;
   int count = 0;  // watch: exit after this many distinct events (0 = forever)
+  long long since_seq = -1;  // watch: ask the daemon for the events from this seq (replay request)
   bool json = false;
 };
 
@@ -53,6 +54,11 @@ bool ReadCredentials(const std::string& path, std::string* user, std::string* pa
   }
   if ((st.st_mode & 077) != 0) {
     std::fprintf(stderr, "holdfast alarms: %s: accessible to group or others; chmod 600 it\n", path.c_str());
+    return false;
+  }
+  if (st.st_uid != ::geteuid()) {
+    std::fprintf(stderr, "holdfast alarms: %s: owned by uid %u, not by you (uid %u); chown it\n", path.c_str(),
+                 static_cast<unsigned>(st.st_uid), static_cast<unsigned>(::geteuid()));
     return false;
   }
   std::ifstream in(path);
@@ -168,6 +174,19 @@ int Watch(const AlarmsArgs& a) {
   std::string user;
   if (!s.Connect(a, &user) || !s.Subscribe(a.prefix + "/events/#")) return 2;
   std::fprintf(stderr, "holdfast alarms: watching %s/events/# on %s\n", a.prefix.c_str(), a.broker.c_str());
+  if (a.since_seq >= 0) {
+    // Catch up: the daemon republishes every event it still keeps from this
+    // seq on (config/DAEMON.md, "Replay by sequence number"); duplicates of
+    // what arrives live are dropped below by (segment, seq).
+    if (user.empty()) {
+      std::fprintf(stderr, "holdfast alarms watch: --since-seq needs --credentials (the request goes out under your user)\n");
+      return 2;
+    }
+    const std::string req = "{\"id\":\"watch-" + std::to_string(::getpid()) + "\",\"replay_from_seq\":" +
+                            std::to_string(a.since_seq) + "}";
+    if (!s.Publish(a.prefix + "/commands/" + user, req)) return 1;
+    std::fprintf(stderr, "holdfast alarms: asked for the events from seq %lld\n", a.since_seq);
+  }
   std::set<std::pair<std::string, uint64_t>> seen;
   int shown = 0;
   const double wait = a.count > 0 ? a.timeout_s : std::nan("");
@@ -283,6 +302,9 @@ void Register(CLI::App& app, int* exit_code) {
   CLI::App* watch = alarms->add_subcommand("watch", "print alarm events as they arrive (de-duplicated by segment, seq)");
   AddCommon(watch, args.get());
   watch->add_option("--count", args->count, "exit after this many events (0: run until interrupted)");
+  watch->add_option("--since-seq", args->since_seq,
+                    "first ask the daemon for every event it keeps from this sequence number on (catch-up)")
+      ->check(CLI::NonNegativeNumber);
   watch->add_flag("--json", args->json, "print the events as JSON Lines");
   watch->callback([args, exit_code] { *exit_code = Watch(*args); });
   const std::pair<const char*, const char*> commands[] = {

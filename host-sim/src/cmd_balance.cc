@@ -19,6 +19,9 @@ namespace {
 struct BalanceArgs {
   std::string config, data, out = "-", format = "csv", segment, events, tuning;
   int every = 1;
+  // Data time as holdfastd keeps it (config/REPLAY.md).
+  double reorder_window_s = kDefaultReorderWindow_s, max_lead_s = kDefaultMaxLead_s;
+  int lead_quorum = kDefaultLeadQuorumPoints;
 };
 
 std::string Num(double v, const char* fmt = "%.6f") {
@@ -88,6 +91,19 @@ void WriteRow(std::FILE* f, const BalanceArgs& a, const std::string& seg, const 
                AlarmStateName(t.alarms[static_cast<int>(AlarmType::kLeak)]), flags.c_str());
 }
 
+// --reorder-window-s, --max-lead-s, --lead-quorum: data time as holdfastd
+// keeps it, with the daemon's defaults (config/REPLAY.md).
+void AddDataTimeOptions(CLI::App* cmd, double* reorder_window_s, double* max_lead_s, int* lead_quorum) {
+  cmd->add_option("--reorder-window-s", *reorder_window_s,
+                  "Reorder window, s of data time (holdfastd's tick_lateness_s; negative: feed in file order)")
+      ->capture_default_str();
+  cmd->add_option("--max-lead-s", *max_lead_s,
+                  "Quarantine a reading stamped more than this ahead of data time (0: off)")
+      ->capture_default_str()->check(CLI::NonNegativeNumber);
+  cmd->add_option("--lead-quorum", *lead_quorum, "Points that must agree to move data time past the lead")
+      ->capture_default_str()->check(CLI::PositiveNumber);
+}
+
 int RunBalance(const BalanceArgs& a) {
   Site site;
   if (!LoadSiteOrSay(a.config, &site)) return 2;
@@ -137,6 +153,13 @@ int RunBalance(const BalanceArgs& a) {
   // The shared tick loop (replay_driver.h): events first, then the rows of
   // the tick, so that both may go to standard output in a stable order.
   ReplayOptions options;
+  options.reorder_window_s = a.reorder_window_s >= 0.0 ? a.reorder_window_s : kNaN;
+  options.max_lead_s = a.max_lead_s;
+  options.lead_quorum_points = a.lead_quorum;
+  if (!options.IsValid(&why)) {
+    std::fprintf(stderr, "--reorder-window-s/--max-lead-s: %s\n", why.c_str());
+    return 2;
+  }
   options.on_event = [&](const AlarmEvent& e) {
     if (events) std::fprintf(events, "%s\n", EventJson(site, e).c_str());
   };
@@ -154,6 +177,8 @@ int RunBalance(const BalanceArgs& a) {
   CsvReadingSource source(&reader);
   const ReplayResult run = RunReplay(&monitor, &source, site.tick_s, options);
   const uint64_t event_count = run.events;
+  if (run.quarantined > 0 || run.gaps_jumped > 0)
+    std::fprintf(stderr, "data time: %s\n", run.ToString().c_str());
   if (out != stdout) std::fclose(out);
   if (events && events != stdout) std::fclose(events);
   std::fprintf(stderr, "%s: %llu rows, %llu bad; %llu ticks; readings %s\n", reader.path().c_str(),
@@ -181,6 +206,7 @@ void Register(CLI::App& app, int* exit_code) {
   cmd->add_option("--segment", args->segment, "Only this segment id");
   cmd->add_option("--events", args->events, "Write alarm events as JSON Lines to this file (- for stdout)");
   cmd->add_option("--tuning", args->tuning, "Tuning file from 'holdfast tune' to seed the decision stage");
+  AddDataTimeOptions(cmd, &args->reorder_window_s, &args->max_lead_s, &args->lead_quorum);
   cmd->callback([args, exit_code] { *exit_code = RunBalance(*args); });
 }
 

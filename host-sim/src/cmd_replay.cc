@@ -57,6 +57,10 @@ struct ReplayArgs {
   double pace = 0.0;
   bool fast = false;
   std::vector<std::string> inject;
+  // Data time as holdfastd keeps it (config/REPLAY.md): reorder window (a
+  // negative value: the plain file-order loop), lead guard (0: off), quorum.
+  double reorder_window_s = kDefaultReorderWindow_s, max_lead_s = kDefaultMaxLead_s;
+  int lead_quorum = kDefaultLeadQuorumPoints;
 };
 
 // ---------------------------------------------------------------------------
@@ -694,6 +698,19 @@ nlohmann::ordered_json SegmentSummary(const Monitor& monitor, int s) {
   return j;
 }
 
+// --reorder-window-s, --max-lead-s, --lead-quorum: data time as holdfastd
+// keeps it, with the daemon's defaults (config/REPLAY.md).
+void AddDataTimeOptions(CLI::App* cmd, double* reorder_window_s, double* max_lead_s, int* lead_quorum) {
+  cmd->add_option("--reorder-window-s", *reorder_window_s,
+                  "Reorder window, s of data time (holdfastd's tick_lateness_s; negative: feed in file order)")
+      ->capture_default_str();
+  cmd->add_option("--max-lead-s", *max_lead_s,
+                  "Quarantine a reading stamped more than this ahead of data time (0: off)")
+      ->capture_default_str()->check(CLI::NonNegativeNumber);
+  cmd->add_option("--lead-quorum", *lead_quorum, "Points that must agree to move data time past the lead")
+      ->capture_default_str()->check(CLI::PositiveNumber);
+}
+
 int RunReplayCommand(const ReplayArgs& a) {
   Site site;
   if (!LoadSiteOrSay(a.config, &site)) return 2;
@@ -706,9 +723,12 @@ int RunReplayCommand(const ReplayArgs& a) {
       return 2;
     }
   }
+  options.reorder_window_s = a.reorder_window_s >= 0.0 ? a.reorder_window_s : kNaN;
+  options.max_lead_s = a.max_lead_s;
+  options.lead_quorum_points = a.lead_quorum;
   std::string why;
   if (!options.IsValid(&why)) {
-    std::fprintf(stderr, "--start/--until: %s\n", why.c_str());
+    std::fprintf(stderr, "--start/--until/--reorder-window-s/--max-lead-s: %s\n", why.c_str());
     return 2;
   }
   std::vector<LeakSpec> leaks;
@@ -899,6 +919,7 @@ void Register(CLI::App& app, int* exit_code) {
                   "Write a JSON summary at the end: each segment's final decision, leak rate and location");
   cmd->add_option("--start", args->start, "Skip readings before this time (ISO 8601 with a zone)");
   cmd->add_option("--until", args->until, "Stop reading after this time (ISO 8601 with a zone)");
+  AddDataTimeOptions(cmd, &args->reorder_window_s, &args->max_lead_s, &args->lead_quorum);
   cmd->add_option("--inject-leak", args->inject,
                   "start=ISO,rate=KG_S,chainage=M[,ramp=S][,segment=ID][,sink=auto|outlet|tank][,hold=outlet|inlet]")
       ->allow_extra_args(false);

@@ -122,7 +122,7 @@ def make_certs(d):
 
 
 class Broker:
-    def __init__(self, d, tls=False, persistence=False):
+    def __init__(self, d, tls=False, persistence=False, autosave_s=1):
         self.dir = d
         self.tls = tls
         self.port = free_port()
@@ -144,7 +144,7 @@ class Broker:
                  "log_dest file " + os.path.join(d, "mosquitto.log"), "log_type error", "log_type warning",
                  "log_type notice"]
         if persistence:
-            lines += ["persistence true", "persistence_location " + d + "/", "autosave_interval 1"]
+            lines += ["persistence true", "persistence_location " + d + "/", "autosave_interval %d" % autosave_s]
         else:
             lines += ["persistence false"]
         lines += ["listener %d 127.0.0.1" % self.port]
@@ -200,10 +200,13 @@ class Broker:
 
 
 class Watcher:
-    """mosquitto_sub in the background, lines "topic payload" into a file."""
+    """mosquitto_sub in the background, lines "topic payload" into a file.
+    `topic` may be a list of filters."""
     def __init__(self, broker, user, topic, path, client_id=None):
         self.path = path
-        args = ["mosquitto_sub"] + broker.client_args(user) + ["-q", "1", "-v", "-t", topic]
+        args = ["mosquitto_sub"] + broker.client_args(user) + ["-q", "1", "-v"]
+        for t in (topic if isinstance(topic, list) else [topic]):
+            args += ["-t", t]
         if client_id:
             args += ["-c", "-i", client_id]
         self.out = open(path, "a")

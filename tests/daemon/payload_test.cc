@@ -84,6 +84,19 @@ TEST(Payload, NumbersTooLargeForADoubleAreNotNumbers) {
   const ParseResult r = Parse(R"({"time":1773468000,"value":1e999})", "FT-1", &out);
   EXPECT_EQ(r.accepted, 0u);
   EXPECT_EQ(r.rejected_total(), 1u);
+  EXPECT_EQ(r.rejected[static_cast<int>(Reject::kNotFinite)], 1u);  // counted as not_finite (issue 11)
+}
+
+TEST(Payload, NonFiniteValuesAreCountedAsNotFinite) {
+  for (const char* p : {R"({"time":1773468000,"value":NaN})", R"({"time":1773468000,"value":-Infinity})",
+                        R"({"time":1773468000,"value":"NaN"})", R"({"time":1773468000,"value":-1e400})"}) {
+    std::vector<Reading> out;
+    const ParseResult r = Parse(p, "FT-1", &out);
+    EXPECT_EQ(r.rejected[static_cast<int>(Reject::kNotFinite)], 1u) << p;
+  }
+  std::vector<Reading> out;  // a NaN inside a string of a malformed payload is not a value
+  const ParseResult r = Parse(R"({"time":"NaN", "value": })", "FT-1", &out);
+  EXPECT_EQ(r.rejected[static_cast<int>(Reject::kMalformedJson)], 1u);
 }
 
 TEST(Payload, LimitsOnSizeBatchAndClock) {
