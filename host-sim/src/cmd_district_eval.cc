@@ -34,8 +34,8 @@ namespace holdfast::cli {
 namespace {
 
 struct Args {
-  std::string config, family, set = "tuning", out_json, out_csv;
-  bool no_meters = false;
+  std::string config, family, set = "tuning", out_json, out_csv, dump;
+  bool no_meters = false, meter_bias = false;
   int threads = 1;
   std::vector<int> seeds;  // overrides the set
 };
@@ -169,13 +169,25 @@ int Run(const Args& a) {
       SeedResult& r = results[i];
       r.seed = seeds[i];
       for (int run = 0; run < 2; ++run) {
-        const sim::DistrictScenario sc = Draw(base, seeds[i], start_s, fam.duration_days, run == 1);
+        sim::DistrictScenario sc = Draw(base, seeds[i], start_s, fam.duration_days, run == 1);
+        if (!a.meter_bias) {
+          // The method's own error: meters with their random noise but no
+          // systematic error (see config/WATER.md for what a bias does).
+          for (sim::InstrumentSpec& ins : sc.instruments) {
+            ins.bias_draw_sigma = ins.bias_draw_sigma_fraction = 0.0;
+            ins.bias = ins.bias_fraction = 0.0;
+          }
+        }
         sim::DistrictSimResult simr;
         sim::DistrictRunLog log;
         std::string err;
         if (!sim::SimulateDistrict(site, sc, &simr, &err) || !sim::RunDistrictOnSim(site, sc.district, simr, 60.0, &log, &err)) {
           r.error = err;
           break;
+        }
+        if (!a.dump.empty()) {
+          std::string e2;
+          sim::WriteDistrictSimulation(site, simr, a.dump + "/" + std::to_string(seeds[i]) + (run ? "-bursts" : "-free"), &e2);
         }
         const sim::DistrictEvaluation ev = sim::EvaluateDistrictLog(simr.truth, log, mo.min_nights);
         if (run == 0) {
@@ -287,6 +299,8 @@ void Register(CLI::App& app, int* exit_code) {
   cmd->add_option("--set", args->set, "Seed set from the family file: tuning (default) or holdout");
   cmd->add_option("--seeds", args->seeds, "Explicit seeds instead of a set");
   cmd->add_flag("--no-meters", args->no_meters, "Ignore the district's customer meters");
+  cmd->add_flag("--meter-bias", args->meter_bias, "Draw the meters' systematic errors from the site's accuracy (default: none)");
+  cmd->add_option("--dump", args->dump, "Write each run's readings and truth under DIR/SEED-free and DIR/SEED-bursts");
   cmd->add_option("--threads", args->threads, "Worker threads (default 1)")->check(CLI::Range(1, 16));
   cmd->add_option("--csv", args->out_csv, "Write the burst table as CSV");
   cmd->add_option("--json", args->out_json, "Write the per-seed figures as JSON");

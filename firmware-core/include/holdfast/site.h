@@ -156,7 +156,7 @@ struct DistrictSpec {
   double quiet_end_h = 4.0;
   double night_alarm_sigmas = 5.0;
   double min_step_m3_h = 0.6;
-  double day_min_m3_h = 2.0;
+  double day_min_m3_h = 3.5;
   double day_alarm_sigmas = 4.0;
   // Reservoir level smoothing before the balance (first-order time
   // constant, s; 0 = none).

@@ -341,18 +341,19 @@ struct DistrictMonitorOptions {
   int accept_nights = 3;
   // Floors of the spread: absolute, and relative to the baseline level.
   double min_sigma_m3_h = 0.05;
-  double min_sigma_fraction = 0.02;
+  double min_sigma_fraction = 0.005;
 
   // --- Day path (fast): each block against the time-of-day profile of its
   // kind of day (median of the last `profile_days` values per bin; spread
   // from their MAD, pooled over +-1 bin). Alarm when `day_blocks`
-  // consecutive blocks each exceed it by day_alarm_sigmas and by
-  // day_min_m3_h. While a block is above suspect_sigmas it is not learnt.
+  // consecutive blocks each exceed it by suspect_sigmas, and on average by
+  // day_alarm_sigmas and by day_min_m3_h. While a block is above
+  // suspect_sigmas it is not learnt.
   int profile_days = 7;
   int min_profile_days = 3;
   int day_blocks = 3;
   double day_alarm_sigmas = 4.0;
-  double day_min_m3_h = 2.0;
+  double day_min_m3_h = 3.5;
 
   // Customer meters: how long after a block ends to wait for its customer
   // volume (interval totals arrive at the end of their interval), s.
@@ -461,6 +462,7 @@ class DistrictMonitor {
     double quiet_first_s = 0.0, quiet_end_s = 0.0;
   };
   void OpenBlock(double start_s);
+  Pending* Block(double start_s);  // the pending block starting there, opened if ahead; null if decided
   void DecideReady(double t);
   void Decide(const Pending& p, double t);
   void DayPath(DistrictBlock& b, int kind, int bin, double t);
@@ -481,7 +483,7 @@ class DistrictMonitor {
   DistrictTick tick_;
   // Balance state.
   bool have_prev_ = false, started_ = false;
-  double prev_storage_ = 0.0;
+  double prev_storage_ = 0.0, prev_in_m3_s_ = 0.0, prev_out_m3_s_ = 0.0;
   double cum_zone_m3_ = 0.0, f_zone_ = 0.0, prev_f_zone_ = 0.0;
   // Blocks waiting for their customer volume (ring, oldest first).
   std::vector<Pending> pending_;
@@ -500,7 +502,7 @@ class DistrictMonitor {
   std::vector<double> prof_;
   std::vector<int> prof_n_, prof_head_;
   int run_ = 0;                  // consecutive day-path exceedances
-  double run_sum_ = 0.0, run_var_ = 0.0, run_start_s_ = 0.0;
+  double run_sum_ = 0.0, run_var_ = 0.0, run_z_ = 0.0, run_start_s_ = 0.0;
   double day_suppress_until_s_ = -1e300;
   // Nights: ring of usable nights (value, weekend), oldest first.
   NightAcc acc_;

@@ -171,7 +171,7 @@ bool DistrictMonitor::Init(int district, const DistrictMonitorOptions& options, 
   prof_n_.assign(static_cast<size_t>(2 * bins_), 0);
   prof_head_.assign(static_cast<size_t>(2 * bins_), 0);
   run_ = 0;
-  run_sum_ = run_var_ = run_start_s_ = 0.0;
+  run_sum_ = run_var_ = run_z_ = run_start_s_ = 0.0;
   day_suppress_until_s_ = -1e300;
   acc_ = NightAcc{};
   night_x_.assign(kNightRing, 0.0);
@@ -217,6 +217,24 @@ double DistrictMonitor::profile_m3_h(int kind, int bin) const {
   return Median(&prof_[static_cast<size_t>(pb) * o_.profile_days], n);
 }
 
+DistrictMonitor::Pending* DistrictMonitor::Block(double start_s) {
+  // Blocks already decided are gone.
+  if (pend_n_ > 0 && start_s < pending_[pend_head_].start_s - 1e-6) return nullptr;
+  if (have_open_ && start_s <= open_start_s_ + 1e-6) {
+    for (int i = pend_n_ - 1; i >= 0; --i) {
+      Pending& p = pending_[(pend_head_ + i) % kPendingBlocks];
+      if (std::fabs(p.start_s - start_s) < 1e-6) return &p;
+    }
+    return nullptr;
+  }
+  // Open every block up to this one (blocks skipped by a long gap are
+  // opened empty and will be incomplete).
+  double s = have_open_ ? open_start_s_ + o_.block_s : start_s;
+  if (start_s - s > kPendingBlocks * o_.block_s) s = start_s - (kPendingBlocks - 1) * o_.block_s;
+  for (; s <= start_s + 1e-6; s += o_.block_s) OpenBlock(s);
+  return &pending_[(pend_head_ + pend_n_ - 1) % kPendingBlocks];
+}
+
 void DistrictMonitor::OpenBlock(double start_s) {
   if (pend_n_ == kPendingBlocks) {
     // The oldest block has waited too long: decide it now.
@@ -243,8 +261,12 @@ void DistrictMonitor::Step(double t, double dt, bool valid, double inflow_m3_s, 
           std::isfinite(dt) && dt > 0.0 && dt < 1e7;
   started_ = true;
   if (valid) {
-    if (have_prev_) cum_zone_m3_ += (inflow_m3_s - outflow_m3_s) * dt - (storage_m3 - prev_storage_);
+    // Sample and hold: the flows read at the previous tick held over
+    // (t - dt, t]; the storage change between the two ticks.
+    if (have_prev_) cum_zone_m3_ += (prev_in_m3_s_ - prev_out_m3_s_) * dt - (storage_m3 - prev_storage_);
     prev_storage_ = storage_m3;
+    prev_in_m3_s_ = inflow_m3_s;
+    prev_out_m3_s_ = outflow_m3_s;
   }
   const bool counted = valid && have_prev_;  // the first valid tick after a gap only re-baselines
   have_prev_ = valid;
@@ -263,18 +285,11 @@ void DistrictMonitor::Step(double t, double dt, bool valid, double inflow_m3_s, 
   if (std::isfinite(dt) && dt > 0.0 && dt < 1e7) {
     const double mid = t - 0.5 * dt;
     const double start = std::floor(mid / o_.block_s) * o_.block_s;
-    if (!have_open_ || start > open_start_s_ + 1e-6) {
-      // Blocks skipped by a long gap are opened empty (they will be incomplete).
-      double s = have_open_ ? open_start_s_ + o_.block_s : start;
-      if (start - s > kPendingBlocks * o_.block_s) s = start - kPendingBlocks * o_.block_s;
-      for (; s <= start + 1e-6; s += o_.block_s) OpenBlock(s);
-    }
-    if (start >= open_start_s_ - 1e-6) {
-      Pending& p = pending_[(pend_head_ + pend_n_ - 1) % kPendingBlocks];
-      p.zone_s += dt;
+    if (Pending* p = Block(start)) {
+      p->zone_s += dt;
       if (counted) {
-        p.zone_m3 += f_zone_ - prev_f_zone_;
-        p.zone_valid_s += dt;
+        p->zone_m3 += f_zone_ - prev_f_zone_;
+        p->zone_valid_s += dt;
       }
     }
   }
@@ -293,24 +308,33 @@ void DistrictMonitor::Step(double t, double dt, bool valid, double inflow_m3_s, 
 
 void DistrictMonitor::AddCustomerVolume(double t0, double t1, double volume_m3) {
   if (!has_customer_ || !std::isfinite(t0) || !std::isfinite(t1) || !std::isfinite(volume_m3) || !(t1 > t0) ||
-      t1 - t0 > o_.block_s * (1.0 + 1e-9) * 24.0) {
+      t1 - t0 > o_.block_s * 24.0 || (have_open_ && t1 > open_start_s_ + 4.0 * o_.block_s)) {
     ++late_customer_;
     return;
   }
   const double rate = volume_m3 / (t1 - t0);
-  bool placed = false;
-  for (int i = 0; i < pend_n_; ++i) {
-    Pending& p = pending_[(pend_head_ + i) % kPendingBlocks];
-    const double a = std::max(t0, p.start_s), b = std::min(t1, p.start_s + o_.block_s);
+  // The zone volume comes through the first-order filter, which delays a
+  // smoothly varying flow by its time constant (the steady lag of a first-
+  // order filter behind a ramp). Customer volumes are moved by the same
+  // delay, so that the morning rise does not show as a residual.
+  t0 += o_.filter_s;
+  t1 += o_.filter_s;
+  // Spread over the blocks the interval covers (opening blocks ahead of the
+  // zone meters when the delay takes it there).
+  bool late = false;
+  for (double bs = std::floor(t0 / o_.block_s) * o_.block_s; bs < t1 - 1e-6; bs += o_.block_s) {
+    Pending* p = Block(bs);
+    if (p == nullptr) {
+      late = true;
+      continue;
+    }
+    const double a = std::max(t0, p->start_s), b = std::min(t1, p->start_s + o_.block_s);
     if (b > a) {
-      p.cust_m3 += rate * (b - a);
-      p.cust_s += b - a;
-      placed = true;
+      p->cust_m3 += rate * (b - a);
+      p->cust_s += b - a;
     }
   }
-  // Customer data for blocks not yet opened (a meter ahead of the zone
-  // meters) or already decided is not used.
-  if (!placed || (pend_n_ > 0 && t0 < pending_[pend_head_].start_s - 1e-6)) ++late_customer_;
+  if (late) ++late_customer_;
 }
 
 void DistrictMonitor::DecideReady(double t) {
@@ -320,9 +344,6 @@ void DistrictMonitor::DecideReady(double t) {
     if (t < end - 1e-6) break;  // still filling
     const bool cust_done = !has_customer_ || p.cust_s >= o_.block_s * 0.999;
     if (!cust_done && t < end + o_.customer_wait_s) break;
-    // The open block ends exactly now: it only counts once the next tick
-    // has started a new block (the last tick's volume belongs to it).
-    if (have_open_ && p.start_s >= open_start_s_ - 1e-6 && pend_n_ == 1 && t < end + 1e-6) break;
     Decide(p, t);
     pend_head_ = (pend_head_ + 1) % kPendingBlocks;
     --pend_n_;
@@ -419,17 +440,20 @@ void DistrictMonitor::DayPath(DistrictBlock& b, int kind, int bin, double t) {
     b.z = (b.residual_m3_h - med) / sigma;
   }
   const bool suspect = std::isfinite(sigma) && b.z > o_.suspect_sigmas;
-  const bool exceed = std::isfinite(sigma) && b.z > o_.day_alarm_sigmas && b.residual_m3_h - med > o_.day_min_m3_h &&
-                      b.start_s >= day_suppress_until_s_;
+  // A run of blocks each above suspect_sigmas; the alarm needs day_blocks of
+  // them whose mean is above day_alarm_sigmas and day_min_m3_h. Not while a
+  // day alarm waits for its night to re-measure the step.
+  const bool exceed = suspect && b.start_s >= day_suppress_until_s_ && !std::isfinite(rebase_after_s_);
   if (exceed) {
     if (run_ == 0) {
       run_start_s_ = b.start_s;
-      run_sum_ = run_var_ = 0.0;
+      run_sum_ = run_var_ = run_z_ = 0.0;
     }
     ++run_;
     run_sum_ += b.residual_m3_h - med;
     run_var_ += sigma * sigma;
-    if (run_ >= o_.day_blocks) {
+    run_z_ += b.z;
+    if (run_ >= o_.day_blocks && run_z_ / run_ > o_.day_alarm_sigmas && run_sum_ / run_ > o_.day_min_m3_h) {
       BurstReport r;
       r.time_s = t;
       r.path = BurstPath::kDay;
@@ -437,12 +461,12 @@ void DistrictMonitor::DayPath(DistrictBlock& b, int kind, int bin, double t) {
       r.size_ci95_m3_h = kZ95 * std::sqrt(run_var_) / run_;  // day blocks are correlated: a rough limit
       r.change_s = run_start_s_;
       r.change_ci_s = o_.block_s;
-      r.statistic = r.size_m3_h / std::sqrt(run_var_ / run_);
+      r.statistic = run_z_ / run_;
       r.threshold = o_.day_alarm_sigmas;
       Raise(r);
       ShiftBaselines(r.size_m3_h);
-      // The night in progress (or the next) re-measures the step instead of
-      // testing it again.
+      // The first whole night after the change re-measures the step instead
+      // of testing it again (and corrects both baselines).
       rebase_after_s_ = run_start_s_;
       run_ = 0;
       return;  // the shifted profile already holds the new level
@@ -548,6 +572,8 @@ void DistrictMonitor::NightPath(DistrictNight* n, double t) {
       const double base = baseline(we, &sigma);
       const double corr = x - base;
       for (int i = 0; i < nights_n_; ++i) night_x_[at(i)] += corr;
+      for (int i = 0; i < 2 * bins_; ++i)
+        for (int k = 0; k < prof_n_[i]; ++k) prof_[static_cast<size_t>(i) * o_.profile_days + k] += corr;
       n->baseline_m3_h = base + corr;
       n->sigma_m3_h = sigma;
       n->step_m3_h = 0.0;
