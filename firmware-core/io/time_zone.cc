@@ -265,7 +265,10 @@ bool PosixTzSchedule(const std::string& rule, double from_s, double to_s, water:
 
 bool BuildOffsetSchedule(const std::string& zone, double from_s, double to_s, water::UtcOffsetSchedule* out,
                          std::string* why) {
-  const bool looks_iana = zone.find('/') != std::string::npos || zone == "UTC" || zone == "GMT";
+  // IANA names have a '/' (or are UTC/GMT) and no ',' (POSIX rules with
+  // summer time have two, and may have '/' in their change times).
+  const bool looks_iana =
+      zone.find(',') == std::string::npos && (zone.find('/') != std::string::npos || zone == "UTC" || zone == "GMT");
   if (looks_iana) {
     if (zone.find("..") != std::string::npos || zone[0] == '/') {
       *why = "time zone \"" + zone + "\": not a zone name";
