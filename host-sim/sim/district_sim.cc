@@ -11,6 +11,7 @@
 
 #include <nlohmann/json.hpp>
 
+#include "district_driver.h"
 #include "readings_csv.h"
 #include "water_files.h"
 
@@ -86,7 +87,13 @@ bool CompileDistrictScenario(const json& doc, const std::string& file, const Sit
     const std::string p = "/demand";
     c.Keys(*d, p,
            {"household_daily_m3", "non_household_daily_m3", "household_night_l_h", "non_household_night_l_h",
-            "day_to_day_pct", "noise_pct", "noise_correlation_s", "day_pattern"});
+            "day_to_day_pct", "noise_pct", "noise_correlation_s", "day_pattern", "night_to_night_pct",
+            "weekend_night_pct", "weekend_day_pct", "weekend_shift_h", "unmetered_bias_pct"});
+    c.Number(*d, "night_to_night_pct", p, false, &sc.night_to_night_pct, 0.0, 50.0, "in [0, 50] %");
+    c.Number(*d, "weekend_night_pct", p, false, &sc.weekend_night_pct, -50.0, 100.0, "in [-50, 100] %");
+    c.Number(*d, "weekend_day_pct", p, false, &sc.weekend_day_pct, -50.0, 100.0, "in [-50, 100] %");
+    c.Number(*d, "weekend_shift_h", p, false, &sc.weekend_shift_h, 0.0, 6.0, "in [0, 6] h");
+    c.Number(*d, "unmetered_bias_pct", p, false, &sc.unmetered_bias_pct, -50.0, 50.0, "in [-50, 50] %");
     c.Number(*d, "household_daily_m3", p, false, &sc.household_daily_m3, 0.0, 100.0, "in [0, 100] m3");
     c.Number(*d, "non_household_daily_m3", p, false, &sc.non_household_daily_m3, 0.0, 1e4, "in [0, 1e4] m3");
     c.Number(*d, "household_night_l_h", p, false, &sc.household_night_l_h, 0.0, 100.0, "in [0, 100] L/h");
@@ -138,15 +145,18 @@ bool CompileDistrictScenario(const json& doc, const std::string& file, const Sit
       const std::string p = "/bursts/" + std::to_string(i);
       const json& e = (*b)[i];
       if (!e.is_object()) {
-        c.Add(p, "must be an object {\"start_day\", \"rate_m3_h_at_50m\"}");
+        c.Add(p, "must be an object {\"start_day\", \"rate_m3_h_at_50m\"[, \"end_day\"]}");
         continue;
       }
-      c.Keys(e, p, {"start_day", "rate_m3_h_at_50m"});
+      c.Keys(e, p, {"start_day", "rate_m3_h_at_50m", "end_day"});
       DistrictBurst burst;
-      double sd = 0.0;
+      double sd = 0.0, ed = -1.0;
       const bool a = c.Number(e, "start_day", p, true, &sd, 0.0, 400.0, "in [0, 400] days since the start");
       const bool r = c.Number(e, "rate_m3_h_at_50m", p, true, &burst.rate_m3_h_at_50m, 0.0, 1e4, "in [0, 1e4] m3/h");
+      if (c.Number(e, "end_day", p, false, &ed, 0.0, 400.0, "in [0, 400] days since the start") && a && !(ed > sd))
+        c.Add(p + "/end_day", "must be after start_day");
       burst.start_s = sd * 86400.0;
+      burst.end_s = ed >= 0.0 ? ed * 86400.0 : -1.0;
       if (a && r) sc.bursts.push_back(burst);
     }
   }
@@ -157,7 +167,10 @@ bool CompileDistrictScenario(const json& doc, const std::string& file, const Sit
     pts.insert(pts.end(), d.outlets.begin(), d.outlets.end());
     for (const ReservoirSpec& r : d.reservoirs) pts.push_back(r.level_point);
     pts.push_back(d.pressure_point);
-    if (d.customer_meter_point >= 0) pts.push_back(d.customer_meter_point);
+    // Interval and register kinds of customer meter are written by the
+    // generator itself (exact totals); a spot rate goes through an instrument.
+    if (d.customer_meter_point >= 0 && d.customer_meter_reading == DistrictSpec::MeterReading::kSpot)
+      pts.push_back(d.customer_meter_point);
     if (d.reservoirs.size() > 1) c.Add("/district", "the generator models at most one reservoir per district");
     for (int pt : pts) {
       const PointSpec& ps = site.points[pt];
@@ -234,6 +247,8 @@ bool SimulateDistrict(const Site& site, const DistrictScenario& sc, DistrictSimR
   }
   const DistrictSpec& d = site.districts[sc.district];
   const bool has_res = !d.reservoirs.empty();
+  water::UtcOffsetSchedule tz;
+  if (!DistrictOffsets(d, &tz, why)) return false;
   std::vector<Instrument> instruments(sc.points.size());
   for (size_t i = 0; i < sc.points.size(); ++i) {
     std::string bad;
@@ -244,6 +259,7 @@ bool SimulateDistrict(const Site& site, const DistrictScenario& sc, DistrictSimR
     instruments[i].Init(sc.points[i], site.points[sc.points[i]].id, sc.instruments[i], sc.seed, sc.duration_s);
   }
   Rng rng(StreamSeed(sc.seed, "district/demand"));
+  Rng rng_u(StreamSeed(sc.seed, "district/unmetered"));
   const double dt = sc.step_s;
   const double night_use_m3_h = (d.households * sc.household_night_l_h + d.non_households * sc.non_household_night_l_h) / 1000.0;
   const double daily_m3 = d.households * sc.household_daily_m3 + d.non_households * sc.non_household_daily_m3;
@@ -252,13 +268,27 @@ bool SimulateDistrict(const Site& site, const DistrictScenario& sc, DistrictSimR
   const double day_comp_m3_h = std::max(0.0, daily_m3 / 24.0 - night_use_m3_h) / pat_mean;
   const double rho = std::exp(-dt / sc.noise_correlation_s);
   const double hl = sc.headloss_m_at_100_m3_h / (100.0 * 100.0);
+  // Customer meters: a metered share f of the properties and an unmetered
+  // rest, each with its own demand noise (independent properties: the
+  // relative noise of a group of share f is noise / sqrt(f)), sharing the
+  // daily and nightly levels.
+  const bool metered = d.customer_meter_point >= 0;
+  const double f = metered ? d.customer_meter_coverage : 1.0;
+  const double sd_m = sc.noise_pct / 100.0 / std::sqrt(f);
+  const double sd_u = f < 1.0 ? sc.noise_pct / 100.0 / std::sqrt(1.0 - f) : 0.0;
+  const double bias_u = 1.0 + sc.unmetered_bias_pct / 100.0;
+  const DistrictSpec::MeterReading kind = d.customer_meter_reading;
+  const double iv = d.customer_meter_interval_s;
+  const PointSpec* cust_ps = metered ? &site.points[d.customer_meter_point] : nullptr;
 
   DistrictSimResult r;
   double level = has_res ? sc.initial_level_m : 0.0;
   double volume = has_res ? InterpolateVolume(d.reservoirs[0], level) : 0.0;
   r.storage_start_m3 = volume;
   bool filling = level < sc.fill_on_level_m;
-  double noise = 0.0, day_level = 1.0;
+  double noise_m = 0.0, noise_u = 0.0, day_level = 1.0, night_level = 1.0;
+  bool weekend = false;
+  double cust_acc_m3 = 0.0, cust_register_m3 = 0.0;
   int64_t cur_day = INT64_MIN;
   double head = sc.base_head_m + level;
   // Night truth accumulators for the local day.
@@ -280,32 +310,47 @@ bool SimulateDistrict(const Site& site, const DistrictScenario& sc, DistrictSimR
   const int64_t steps = static_cast<int64_t>(std::floor(sc.duration_s / dt + 1e-9));
   std::vector<double> value(sc.points.size(), 0.0);
   bool full_day = false;
+  const double kDay = 86400.0;
   for (int64_t k = 0; k <= steps; ++k) {
     const double t = static_cast<double>(k) * dt;
     const double epoch = sc.start_epoch_s + t;
-    const double local = epoch + d.utc_offset_s;
-    const int64_t day = static_cast<int64_t>(std::floor(local / 86400.0));
+    const double local = tz.Local(epoch);
+    const int64_t day = static_cast<int64_t>(std::floor(local / kDay));
     if (day != cur_day) {
       if (cur_day != INT64_MIN && full_day) close_day(cur_day);
       n_leak = n_use = n_head = d_leak = 0.0;
       n_count = 0;
       // Every day is whole but the first, which is whole when the run starts at local midnight.
-      full_day = cur_day != INT64_MIN || std::fabs(std::fmod(local, 86400.0)) < dt * 0.5;
+      full_day = cur_day != INT64_MIN || std::fabs(std::fmod(local, kDay)) < dt * 0.5;
       cur_day = day;
-      day_level = 1.0 + sc.day_to_day_pct / 100.0 * rng.Normal();
+      const int wd = static_cast<int>(((day + 4) % 7 + 7) % 7);  // 0 = Sunday
+      weekend = wd == 0 || wd == 6;
+      day_level = 1.0 + sc.day_to_day_pct / 100.0 * rng.Normal() + (weekend ? sc.weekend_day_pct / 100.0 : 0.0);
+      night_level = 1.0 + sc.night_to_night_pct / 100.0 * rng.Normal() + (weekend ? sc.weekend_night_pct / 100.0 : 0.0);
     }
-    const double hour = std::fmod(local / 3600.0, 24.0);
-    const int h0 = static_cast<int>(hour) % 24;
-    const double w = hour - std::floor(hour);
+    const double hour = (local - static_cast<double>(day) * kDay) / 3600.0;
+    // Weekend mornings start later: the pattern is read earlier by up to
+    // weekend_shift_h between 04:00 and 14:00.
+    double ph = hour;
+    if (weekend && hour > 4.0 && hour < 14.0) ph -= sc.weekend_shift_h * std::min({1.0, (hour - 4.0) / 1.0, (14.0 - hour) / 2.0});
+    if (ph < 0.0) ph += 24.0;
+    const int h0 = static_cast<int>(ph) % 24;
+    const double w = ph - std::floor(ph);
     const double pat = sc.day_pattern[h0] * (1.0 - w) + sc.day_pattern[(h0 + 1) % 24] * w;
-    noise = rho * noise + std::sqrt(1.0 - rho * rho) * (sc.noise_pct / 100.0) * rng.Normal();
-    const double use = std::max(0.0, night_use_m3_h * (1.0 + 0.5 * noise) + day_comp_m3_h * pat * day_level * (1.0 + noise));
+    noise_m = rho * noise_m + std::sqrt(1.0 - rho * rho) * sd_m * rng.Normal();
+    noise_u = rho * noise_u + std::sqrt(1.0 - rho * rho) * sd_u * rng_u.Normal();
+    auto group = [&](double n) {
+      return night_use_m3_h * night_level * (1.0 + 0.5 * n) + day_comp_m3_h * pat * day_level * (1.0 + n);
+    };
+    const double use_m = std::max(0.0, f * group(noise_m));
+    const double use_u = f < 1.0 ? std::max(0.0, (1.0 - f) * bias_u * group(noise_u)) : 0.0;
+    const double use = use_m + use_u;
     const double q_out = sc.outlet_mean_m3_h * (0.6 + 0.4 * pat / pat_mean);
     // FAVAD leakage at the previous step's head.
     const double hr = std::max(head, 0.0) / 50.0;
     double leak = sc.background_leakage_m3_h_at_50m * std::pow(hr, sc.n1);
     for (const DistrictBurst& b : sc.bursts)
-      if (t >= b.start_s) leak += b.rate_m3_h_at_50m * std::pow(hr, sc.burst_n1);
+      if (t >= b.start_s && (b.end_s < 0.0 || t < b.end_s)) leak += b.rate_m3_h_at_50m * std::pow(hr, sc.burst_n1);
     const double q_zone = use + leak;
     head = sc.base_head_m + level - hl * (q_zone + q_out) * (q_zone + q_out);
     double q_in = q_zone + q_out;
@@ -315,12 +360,30 @@ bool SimulateDistrict(const Site& site, const DistrictScenario& sc, DistrictSimR
       q_in = filling ? sc.fill_rate_m3_h : 0.0;
     }
     // Truth for the night window and the day.
-    const double hour_of_day = (local - static_cast<double>(day) * 86400.0) / 3600.0;
-    if (hour_of_day >= d.night_start_h && hour_of_day < d.night_end_h) {
+    if (hour >= d.night_start_h && hour < d.night_end_h) {
       n_leak += leak;
       n_use += use;
       n_head += head;
       ++n_count;
+    }
+    // Interval and register customer meters: written at the end of each
+    // interval (exact aggregate, to the litre).
+    if (metered && kind != DistrictSpec::MeterReading::kSpot && k > 0 &&
+        std::fabs(std::remainder(epoch, iv)) < 0.5 * dt) {
+      SimReading sr;
+      sr.point = d.customer_meter_point;
+      sr.time_s = epoch;
+      sr.quality = Quality::kGood;
+      if (kind == DistrictSpec::MeterReading::kIntervalTotal) {
+        sr.value = std::round(cust_acc_m3 * 1000.0) / 1000.0 / d.customer_meter_volume_m3;
+      } else if (kind == DistrictSpec::MeterReading::kIntervalMean) {
+        sr.value = cust_ps->unit.FromSi(cust_acc_m3 / iv);
+      } else {
+        cust_register_m3 += cust_acc_m3;
+        sr.value = std::round(cust_register_m3 * 1000.0) / 1000.0 / d.customer_meter_volume_m3;
+      }
+      cust_acc_m3 = 0.0;
+      r.readings.push_back(sr);
     }
     // Sample the meters at this step (state at time t).
     size_t vi = 0;
@@ -330,7 +393,7 @@ bool SimulateDistrict(const Site& site, const DistrictScenario& sc, DistrictSimR
     for (size_t i = 0; i < d.outlets.size(); ++i) value[vi++] = q_out / n_out / 3600.0;
     if (has_res) value[vi++] = level;
     value[vi++] = site.atmospheric_pressure_pa + kRhoG * (head - d.pressure_head_offset_m);
-    if (d.customer_meter_point >= 0) value[vi++] = use * d.customer_meter_coverage / 3600.0;
+    if (metered && kind == DistrictSpec::MeterReading::kSpot) value[vi++] = use_m / 3600.0;
     for (size_t i = 0; i < instruments.size(); ++i) {
       Instrument& ins = instruments[i];
       const PointSpec& ps = site.points[sc.points[i]];
@@ -349,6 +412,7 @@ bool SimulateDistrict(const Site& site, const DistrictScenario& sc, DistrictSimR
       volume = std::max(0.0, volume + dv);
       level = InterpolateLevel(d.reservoirs[0], volume);
     }
+    cust_acc_m3 += use_m * dt / 3600.0;
     r.total_input_m3 += q_in * dt / 3600.0;
     r.total_customer_m3 += use * dt / 3600.0;
     r.total_leakage_m3 += leak * dt / 3600.0;
@@ -359,6 +423,20 @@ bool SimulateDistrict(const Site& site, const DistrictScenario& sc, DistrictSimR
   r.mass_residual_m3 = has_res ? r.total_input_m3 - r.total_customer_m3 - r.total_leakage_m3 - r.total_outlet_m3 -
                                      (r.storage_end_m3 - r.storage_start_m3)
                                : 0.0;
+  // Truth for evaluation.
+  double mean_night_head = 0.0;
+  for (const DistrictNightTruth& n : r.nights) mean_night_head += n.night_head_m / std::max<size_t>(1, r.nights.size());
+  r.truth.start_s = sc.start_epoch_s;
+  r.truth.end_s = sc.start_epoch_s + static_cast<double>(steps) * dt;
+  r.truth.nights = r.nights;
+  for (const DistrictBurst& b : sc.bursts) {
+    DistrictBurstTruth bt;
+    bt.start_s = sc.start_epoch_s + b.start_s;
+    bt.end_s = b.end_s >= 0.0 ? sc.start_epoch_s + b.end_s : INFINITY;
+    bt.rate_m3_h_at_50m = b.rate_m3_h_at_50m;
+    bt.rate_at_night_m3_h = b.rate_m3_h_at_50m * std::pow(std::max(mean_night_head, 0.0) / 50.0, sc.burst_n1);
+    r.truth.bursts.push_back(bt);
+  }
   std::stable_sort(r.readings.begin(), r.readings.end(),
                    [](const SimReading& a, const SimReading& b) { return a.time_s < b.time_s; });
   // Truth.
@@ -368,8 +446,11 @@ bool SimulateDistrict(const Site& site, const DistrictScenario& sc, DistrictSimR
   j += "  \"legit_night_use_model_m3_h\": " + Num(night_use_m3_h, 4) + ",\n";
   j += "  \"bursts\": [";
   for (size_t i = 0; i < sc.bursts.size(); ++i) {
-    j += std::string(i ? ", " : "") + "{\"start\": \"" + FormatIsoUtc(sc.start_epoch_s + sc.bursts[i].start_s, 3) +
-         "\", \"rate_m3_h_at_50m\": " + Num(sc.bursts[i].rate_m3_h_at_50m, 4) + "}";
+    const DistrictBurstTruth& bt = r.truth.bursts[i];
+    j += std::string(i ? ", " : "") + "{\"start\": \"" + FormatIsoUtc(bt.start_s, 3) + "\", \"end\": " +
+         (std::isfinite(bt.end_s) ? "\"" + FormatIsoUtc(bt.end_s, 3) + "\"" : std::string("null")) +
+         ", \"rate_m3_h_at_50m\": " + Num(bt.rate_m3_h_at_50m, 4) + ", \"rate_at_night_m3_h\": " +
+         Num(bt.rate_at_night_m3_h, 4) + "}";
   }
   j += "],\n  \"nights\": [\n";
   for (size_t i = 0; i < r.nights.size(); ++i) {
@@ -425,6 +506,162 @@ bool WriteDistrictSimulation(const Site& site, const DistrictSimResult& r, const
     csv += '\n';
   }
   return write("readings.csv", csv) && write("truth.json", r.truth_json);
+}
+
+}  // namespace holdfast::sim
+
+namespace holdfast::sim {
+
+bool LoadDistrictTruth(const std::string& path, DistrictTruth* t, std::string* why) {
+  nlohmann::json doc;
+  std::vector<ConfigProblem> problems;
+  if (!ReadJsonFile(path, &doc, &problems)) {
+    *why = problems.empty() ? path + ": unreadable" : problems[0].ToString();
+    return false;
+  }
+  try {
+    if (doc.value("format", "") != "holdfast-district-truth/1") {
+      *why = path + ":/format: not a district truth file (\"holdfast-district-truth/1\")";
+      return false;
+    }
+    *t = DistrictTruth{};
+    if (!ParseTime(doc.at("start").get<std::string>(), &t->start_s) ||
+        !ParseTime(doc.at("end").get<std::string>(), &t->end_s))
+      throw std::runtime_error("bad start or end");
+    for (const auto& b : doc.at("bursts")) {
+      DistrictBurstTruth bt;
+      if (!ParseTime(b.at("start").get<std::string>(), &bt.start_s)) throw std::runtime_error("bad burst start");
+      bt.end_s = INFINITY;
+      if (b.contains("end") && b.at("end").is_string() && !ParseTime(b.at("end").get<std::string>(), &bt.end_s))
+        throw std::runtime_error("bad burst end");
+      bt.rate_m3_h_at_50m = b.at("rate_m3_h_at_50m").get<double>();
+      bt.rate_at_night_m3_h = b.value("rate_at_night_m3_h", bt.rate_m3_h_at_50m);
+      t->bursts.push_back(bt);
+    }
+    for (const auto& n : doc.at("nights")) {
+      DistrictNightTruth nt;
+      nt.local_day = n.at("local_day").get<int64_t>();
+      nt.night_leakage_m3_h = n.at("night_leakage_m3_h").get<double>();
+      nt.legit_night_use_m3_h = n.at("legit_night_use_m3_h").get<double>();
+      nt.daily_leakage_m3 = n.at("daily_leakage_m3").get<double>();
+      nt.night_head_m = n.at("night_head_m").get<double>();
+      t->nights.push_back(nt);
+    }
+  } catch (const std::exception& e) {
+    *why = path + ": malformed truth file: " + e.what();
+    return false;
+  }
+  return true;
+}
+
+DistrictEvaluation EvaluateDistrict(const DistrictTruth& truth, const std::vector<DistrictAlarmSeen>& alarms,
+                                    const std::vector<DistrictNightSeen>& nights, double learning_end_s) {
+  DistrictEvaluation ev;
+  ev.days = (truth.end_s - truth.start_s) / 86400.0;
+  for (const DistrictBurstTruth& b : truth.bursts) {
+    DistrictBurstOutcome o;
+    o.truth = b;
+    o.in_learning = b.start_s < learning_end_s;
+    ev.bursts.push_back(o);
+  }
+  std::vector<size_t> order(ev.bursts.size());
+  for (size_t i = 0; i < order.size(); ++i) order[i] = i;
+  std::sort(order.begin(), order.end(),
+            [&](size_t a, size_t b) { return ev.bursts[a].truth.start_s < ev.bursts[b].truth.start_s; });
+  for (const DistrictAlarmSeen& a : alarms) {
+    bool matched = false;
+    for (size_t i : order) {
+      DistrictBurstOutcome& o = ev.bursts[i];
+      if (o.truth.start_s <= a.time_s && !std::isfinite(o.delay_h)) {
+        o.delay_h = (a.time_s - o.truth.start_s) / 3600.0;
+        o.estimate_m3_h = a.size_m3_h;
+        o.path = a.path;
+        matched = true;
+        break;
+      }
+    }
+    if (!matched) ++ev.false_alarms;
+  }
+  double se = 0.0, sa = 0.0, mx = 0.0, st = 0.0, sde = 0.0, sdt = 0.0;
+  int n = 0, nd = 0;
+  for (const DistrictNightSeen& s : nights) {
+    for (const DistrictNightTruth& t : truth.nights) {
+      if (t.local_day != s.local_day) continue;
+      if (!std::isfinite(s.night_leakage_m3_h)) break;
+      const double e = s.night_leakage_m3_h - t.night_leakage_m3_h;
+      se += e;
+      sa += std::fabs(e);
+      mx = std::max(mx, std::fabs(e));
+      st += t.night_leakage_m3_h;
+      ++n;
+      if (std::isfinite(s.daily_leakage_m3)) {
+        sde += std::fabs(s.daily_leakage_m3 - t.daily_leakage_m3);
+        sdt += t.daily_leakage_m3;
+        ++nd;
+      }
+      break;
+    }
+  }
+  ev.nights = n;
+  if (n > 0) {
+    ev.night_mean_error_m3_h = se / n;
+    ev.night_mean_abs_error_m3_h = sa / n;
+    ev.night_max_abs_error_m3_h = mx;
+    ev.night_mean_true_m3_h = st / n;
+    ev.night_abs_error_pct = 100.0 * sa / std::max(st, 1e-12);
+    ev.night_bias_pct = 100.0 * se / std::max(st, 1e-12);
+  }
+  if (nd > 0) ev.daily_abs_error_pct = 100.0 * sde / std::max(sdt, 1e-12);
+  return ev;
+}
+
+}  // namespace holdfast::sim
+
+namespace holdfast::sim {
+namespace {
+class SimSource final : public ReadingSource {
+ public:
+  explicit SimSource(const std::vector<SimReading>& v) : v_(v) {}
+  bool Next(Reading* r) override {
+    if (i_ >= v_.size()) return false;
+    const SimReading& s = v_[i_++];
+    r->point = s.point;
+    r->time_s = s.time_s;
+    r->value = s.value;
+    r->quality = s.quality;
+    return true;
+  }
+
+ private:
+  const std::vector<SimReading>& v_;
+  size_t i_ = 0;
+};
+}  // namespace
+
+void AttachDistrictLog(DistrictRunOptions* o, DistrictRunLog* log, bool keep_blocks) {
+  o->on_night = [log](const water::NightResult& n) { log->nights.push_back(n); };
+  o->on_event = [log](const AlarmEvent& e) { log->events.push_back(e); };
+  o->on_burst = [log](const water::BurstReport& b) { log->bursts.push_back(b); };
+  if (keep_blocks) o->on_block = [log](const water::DistrictBlock& b) { log->blocks.push_back(b); };
+}
+
+bool RunDistrictOnSim(const Site& site, int district, const DistrictSimResult& sim, double tick_s,
+                      DistrictRunLog* log, std::string* why) {
+  DistrictRunner runner;
+  if (!runner.Init(site, district, tick_s, why)) return false;
+  DistrictRunOptions o;
+  AttachDistrictLog(&o, log, false);
+  SimSource src(sim.readings);
+  log->run = RunDistrict(&runner, &src, o);
+  return true;
+}
+
+DistrictEvaluation EvaluateDistrictLog(const DistrictTruth& truth, const DistrictRunLog& log, double learning_days) {
+  std::vector<DistrictAlarmSeen> alarms;
+  for (const water::BurstReport& b : log.bursts) alarms.push_back({b.time_s, b.size_m3_h, water::BurstPathName(b.path)});
+  std::vector<DistrictNightSeen> nights;
+  for (const water::NightResult& n : log.nights) nights.push_back({n.local_day, n.night_leakage_m3_h, n.daily_leakage_m3});
+  return EvaluateDistrict(truth, alarms, nights, truth.start_s + learning_days * 86400.0);
 }
 
 }  // namespace holdfast::sim

@@ -8,6 +8,7 @@
 #include <vector>
 
 #include "cli_commands.h"
+#include "district_driver.h"
 #include "holdfast/fluid.h"
 #include "holdfast/pipe.h"
 #include "holdfast/site.h"
@@ -82,6 +83,28 @@ void PrintDistrict(const Site& site, const DistrictSpec& d) {
               d.reservoirs.size(), d.reservoirs.size() == 1 ? "" : "s", site.points[d.pressure_point].id.c_str(),
               d.households, d.non_households, d.service_connections, d.mains_length_km,
               d.customer_meter_point >= 0 ? "from aggregated smart meters" : "from the learnt demand profile");
+  std::string why;
+  water::UtcOffsetSchedule tz;
+  if (!DistrictOffsets(d, &tz, &why)) std::printf("    warning: %s\n", why.c_str());
+  // A reservoir inside the district: the zone flow is inflow - outflow -
+  // dV/dt, so level-transmitter noise enters the night flow directly, and the
+  // MNF (a minimum over the window) takes the low side of it.
+  for (const ReservoirSpec& r : d.reservoirs) {
+    double area_m2 = 0.0;
+    for (size_t i = 1; i < r.strapping.size(); ++i) {
+      const double dl = r.strapping[i].level_m - r.strapping[i - 1].level_m;
+      if (dl > 0.0) area_m2 = std::max(area_m2, (r.strapping[i].volume_m3 - r.strapping[i - 1].volume_m3) / dl);
+    }
+    const double sigma_m = site.points[r.level_point].random_sigma;
+    // Two level readings bound each averaging span: sqrt(2) sigma A / T.
+    const double noise_m3_h = std::sqrt(2.0) * sigma_m * area_m2 / d.night_averaging_s * 3600.0;
+    std::printf("    warning: reservoir %s (about %.0f m2) is inside the district: its level noise (%.1f mm) gives about "
+                "%.2f m3/h of noise on the night flow averaged over %.0f s, and the minimum night flow reads low by "
+                "about that much; use a longer night averaging_s, \"level_smoothing_s\", or meter the reservoir's "
+                "outlet instead%s\n",
+                r.id.c_str(), area_m2, sigma_m * 1000.0, noise_m3_h, d.night_averaging_s,
+                d.level_smoothing_s > 0.0 ? " (level smoothing is on)" : "");
+  }
 }
 
 int RunCheckConfig(const std::string& file) {

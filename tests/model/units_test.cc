@@ -69,6 +69,10 @@ TEST(UnitsTest, Pressure) {
   EXPECT_NEAR(Get("psi").factor, 6894.757293168, 1e-9);  // the exact product to 13 digits
   // B.8 "kilogram-force per square centimeter (kgf/cm2)" = 9.806 65 E+04 Pa.
   ExpectFactor("kgf/cm2", Quantity::kPressure, kGn / 1e-4);
+  // B.8 "meter of water, conventional (mH2O)" = 9.806 65 E+03 Pa and
+  // "foot of water, conventional (ftH2O)" = 2.989 067 E+03 Pa.
+  ExpectFactor("mH2O", Quantity::kPressure, 1000.0 * kGn);
+  EXPECT_NEAR(Get("ftH2O").factor, 2989.067, 1e-3);
 }
 
 TEST(UnitsTest, Temperature) {

@@ -230,17 +230,23 @@ TEST(NightFlow, MinimumLegitimateUseLeakageAndHdf) {
   const double day0 = 20000.0 * 86400.0;
   // Flow: 20 m3/h by day, 6 m3/h between 02:00 and 04:00 with a 5 m3/h dip
   // 02:30-03:00 (30 minutes); pressure 50 m at night (00-06), 40 m by day.
+  // The night is published when its window closes (04:00), with the hour-day
+  // factor over the 24 hours before: the day before is fed too.
   bool closed = false;
-  for (int k = 0; k <= 1440; ++k) {
+  NightResult r;
+  for (int k = -1440; k <= 1440; ++k) {
     const double t = day0 + 60.0 * k;
-    const double h = std::fmod(t / 3600.0, 24.0);
+    const double h = std::fmod(t / 3600.0 + 48.0, 24.0);
     double q = (h >= 2 && h < 4) ? 6.0 : 20.0;
     if (h >= 2.5 && h < 3.0) q = 5.0;
     const double p = (h < 6) ? 50.0 : 40.0;
-    closed = a.Step(t, true, q / 3600.0, p) || closed;
+    if (a.Step(t, true, q / 3600.0, p) && a.result().local_day == 20000) {
+      closed = true;
+      r = a.result();
+      EXPECT_NEAR(t, day0 + 4.0 * 3600.0, 1e-6);  // at the window's end, not at midnight
+    }
   }
   ASSERT_TRUE(closed);
-  const NightResult& r = a.result();
   EXPECT_NEAR(r.mnf_m3_h, 5.0, 1e-9);
   EXPECT_NEAR(r.night_pressure_head_m, 50.0, 1e-9);
   EXPECT_NEAR(r.night_leakage_m3_h, 5.0 - 2.1, 1e-9);
@@ -277,7 +283,8 @@ TEST(NightFlow, StepAcrossNightsIsFlagged) {
   for (size_t i = 0; i < nights.size(); ++i) {
     EXPECT_EQ(nights[i].change, i == 12) << "night " << i << ": " << nights[i].ToString();
   }
-  EXPECT_EQ(nights[0].hdf_h, 24.0);  // constant pressure all day
+  EXPECT_TRUE(std::isnan(nights[0].hdf_h));  // only 4 hours of pressure before the first window's end
+  EXPECT_EQ(nights[1].hdf_h, 24.0);          // constant pressure all day
 }
 
 TEST(DistrictMonitorOptions, Validation) {
@@ -287,8 +294,11 @@ TEST(DistrictMonitorOptions, Validation) {
   o.block_s = 700.0;  // 86400 / 700 is not whole
   EXPECT_FALSE(o.IsValid(&why));
   o = DistrictMonitorOptions{};
-  o.target_sigmas = {};
+  o.baseline_nights = 2;
   EXPECT_FALSE(o.IsValid(&why));
+  o = DistrictMonitorOptions{};
+  o.quiet_start_h = 23.0;  // 23:00 to 04:00 spans midnight: allowed
+  EXPECT_TRUE(o.IsValid(&why)) << why;
   o = DistrictMonitorOptions{};
   o.quiet_end_h = 0.0;
   EXPECT_FALSE(o.IsValid(&why));
@@ -304,24 +314,24 @@ TEST(DistrictMonitor, GarbageInputsAreInvalidTicksNeverCrashes) {
   ASSERT_TRUE(m.Init(0, o, false, &seq, &ring, &why)) << why;
   const double nan = std::nan("");
   const double t0 = 1.8e9;
-  m.Step(t0, 60, true, 0.01, 0.0, 100.0, 0.0);
-  m.Step(t0 + 60, 60, true, nan, 0.0, 100.0, 0.0);
+  m.Step(t0, 60, true, 0.01, 0.0, 100.0);
+  m.Step(t0 + 60, 60, true, nan, 0.0, 100.0);
   EXPECT_FALSE(m.tick().valid);
-  m.Step(t0 + 120, 60, true, 0.01, INFINITY, 100.0, 0.0);
+  m.Step(t0 + 120, 60, true, 0.01, INFINITY, 100.0);
   EXPECT_FALSE(m.tick().valid);
-  m.Step(t0 + 180, -5, true, 0.01, 0.0, 100.0, 0.0);
+  m.Step(t0 + 180, -5, true, 0.01, 0.0, 100.0);
   EXPECT_FALSE(m.tick().valid);
-  m.Step(nan, 60, true, 0.01, 0.0, 100.0, 0.0);   // ignored
-  m.Step(t0 - 1e6, 60, true, 0.01, 0.0, 100.0, 0.0);  // backwards: ignored
+  m.Step(nan, 60, true, 0.01, 0.0, 100.0);   // ignored
+  m.Step(t0 - 1e6, 60, true, 0.01, 0.0, 100.0);  // backwards: ignored
   EXPECT_EQ(m.tick().time_s, t0 + 180);
-  m.Step(t0 + 240, 60, true, 0.01, 0.0, 100.0, 0.0);
+  m.Step(t0 + 240, 60, true, 0.01, 0.0, 100.0);
   EXPECT_TRUE(m.tick().valid);
   EXPECT_EQ(ring.size(), 0u);
   // A gap never becomes an imbalance: the storage jumps by 500 m3 across an
   // invalid tick and the zone flow stays the metered 0.01 m3/s.
-  for (int k = 5; k < 40; ++k) m.Step(t0 + 60 * k, 60, true, 0.01, 0.0, 100.0, 0.0);
-  m.Step(t0 + 60 * 40, 60, false, 0.01, 0.0, 600.0, 0.0);
-  for (int k = 41; k < 80; ++k) m.Step(t0 + 60 * k, 60, true, 0.01, 0.0, 600.0, 0.0);
+  for (int k = 5; k < 40; ++k) m.Step(t0 + 60 * k, 60, true, 0.01, 0.0, 100.0);
+  m.Step(t0 + 60 * 40, 60, false, 0.01, 0.0, 600.0);
+  for (int k = 41; k < 80; ++k) m.Step(t0 + 60 * k, 60, true, 0.01, 0.0, 600.0);
   EXPECT_NEAR(m.tick().zone_flow_m3_s, 0.01, 1e-4);  // the filter is still settling from its start
 }
 

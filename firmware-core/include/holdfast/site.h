@@ -121,12 +121,23 @@ struct DistrictSpec {
   double pressure_head_offset_m = 0.0;  // added to the point's head to represent the AZP
   int customer_meter_point = -1;        // aggregated smart meters (flow), -1 = none
   double customer_meter_coverage = 1.0; // fraction of customer use the aggregate sees, (0, 1]
+  // What a customer-meter reading is: a rate at its time stamp (spot), the
+  // mean rate or the volume over the interval ending at its time stamp
+  // (interval_mean, interval_total), or a register reading (cumulative).
+  enum class MeterReading { kSpot, kIntervalMean, kIntervalTotal, kCumulative };
+  MeterReading customer_meter_reading = MeterReading::kSpot;
+  double customer_meter_interval_s = 3600.0;  // interval_mean and interval_total
+  double customer_meter_volume_m3 = 1.0;      // m3 per unit of a volume reading (interval_total, cumulative)
   double households = 0.0;
   double non_households = 0.0;
   double population = 0.0;              // 0 = not given
   double service_connections = 0.0;
   double mains_length_km = 0.0;
   double private_pipe_length_km = 0.0;  // property line to customer meter
+  // Local time: an IANA zone ("Europe/London", from the system tz database)
+  // or a POSIX TZ rule ("GMT0BST,M3.5.0/1,M10.5.0"), resolved at the
+  // boundary; without one, the fixed utc_offset_s.
+  std::string time_zone;
   // Night-flow analysis (defaults: common practice, see water.h).
   double utc_offset_s = 0.0;
   double night_start_h = 2.0;
@@ -138,9 +149,18 @@ struct DistrictSpec {
   double non_household_night_use_l_h = 8.0;
   double exceptional_night_use_m3_h = 0.0;
   double n1 = 1.0;
-  // Burst detection.
-  double false_alarm_interval_s = 365.0 * 86400.0;
-  int profile_learning_days = 7;
+  // Burst detection (defaults in water.h, DistrictMonitorOptions).
+  double false_alarm_interval_s = 365.0 * 86400.0;  // kept for old configs; not used by the step detector
+  int profile_learning_days = 7;                    // days in the time-of-day profile
+  double quiet_start_h = 0.0;                       // quiet hours for the night step detector, local
+  double quiet_end_h = 4.0;
+  double night_alarm_sigmas = 5.0;
+  double min_step_m3_h = 0.6;
+  double day_min_m3_h = 3.5;
+  double day_alarm_sigmas = 4.0;
+  // Reservoir level smoothing before the balance (first-order time
+  // constant, s; 0 = none).
+  double level_smoothing_s = 0.0;
 };
 
 struct Site {

@@ -25,11 +25,11 @@
 
 #include <array>
 #include <cstdint>
+#include <limits>
 #include <string>
 #include <vector>
 
 #include "holdfast/alarm.h"
-#include "holdfast/decision.h"
 
 namespace holdfast::water {
 
@@ -148,13 +148,37 @@ struct WaterBalance {
 bool ComputeWaterBalance(const WaterBalanceInputs& in, WaterBalance* out, std::string* why);
 
 // ---------------------------------------------------------------------------
+// Local time
+// ---------------------------------------------------------------------------
+
+// A compiled schedule of UTC offsets: offset_s[i] applies from transition
+// from_s[i] (UTC epoch s) until the next transition. Built at the boundary
+// from the system tz database (io/time_zone.h) or a fixed offset; the core
+// only looks values up (no allocation per lookup). Local time = UTC + offset.
+struct UtcOffsetSchedule {
+  std::vector<double> from_s;    // ascending; empty = one fixed offset
+  std::vector<double> offset_s;  // same size as from_s
+  double fixed_offset_s = 0.0;   // before the first transition, or always when empty
+  std::string zone;              // the IANA name or POSIX rule it came from ("" = fixed)
+
+  static UtcOffsetSchedule Fixed(double offset_s);
+  double OffsetAt(double utc_s) const;
+  double Local(double utc_s) const { return utc_s + OffsetAt(utc_s); }
+  bool IsValid(std::string* why) const;
+};
+
+// Days since 1970-01-01 of a local time (floor), and the weekday of such a
+// day (0 = Sunday ... 6 = Saturday; 1970-01-01 was a Thursday).
+int64_t LocalDayOf(double local_s);
+int WeekdayOf(int64_t local_day);
+
+// ---------------------------------------------------------------------------
 // Minimum night flow analysis
 // ---------------------------------------------------------------------------
 
 struct NightFlowOptions {
-  // Local time = UTC + utc_offset_s (a fixed offset: give the standard-time
-  // offset; daylight saving is not applied).
-  double utc_offset_s = 0.0;
+  // Local time (summer time included when the schedule comes from a zone).
+  UtcOffsetSchedule offsets;
   // The night window in local hours, [start, end), within one calendar day.
   // Common practice: 02:00 to 04:00 (from memory).
   double window_start_h = 2.0;
@@ -208,12 +232,23 @@ struct NightResult {
   bool change = false;               // the CUSUM crossed its threshold on this night
   double trend_m3_h_per_day = 0.0;   // slope of night leakage (NaN until 3 nights)
   int valid_samples = 0;             // samples inside the window
+  // Filled by the district monitor when the district has customer meters
+  // (NaN otherwise): the night window's mean zone flow and the metered
+  // customer use scaled by coverage; night leakage is then their difference.
+  double window_zone_flow_m3_h = std::numeric_limits<double>::quiet_NaN();
+  double metered_night_use_m3_h = std::numeric_limits<double>::quiet_NaN();
+  // The burst detector's view of this night (see NightStepDetector below).
+  double step_baseline_m3_h = std::numeric_limits<double>::quiet_NaN();
+  double step_m3_h = std::numeric_limits<double>::quiet_NaN();  // night value - baseline
+  double step_sigma_m3_h = std::numeric_limits<double>::quiet_NaN();
+  bool burst_alarm = false;          // a burst alarm was raised on this night
   std::string ToString() const;
 };
 
 // Fed once per step with the zone's net flow (inflow - outflow - storage
-// change) and the average-zone-pressure point's head; completes a night when
-// the local day ends.
+// change) and the average-zone-pressure point's head; completes a night as
+// soon as its window closes (the hour-day factor then uses the 24 hours
+// before the window's end).
 class NightFlowAnalyzer {
  public:
   bool Init(const NightFlowOptions& options, const DistrictProperties& properties, std::string* why);
@@ -242,8 +277,11 @@ class NightFlowAnalyzer {
   double min_avg_ = 0.0, min_p_ = 0.0, min_t_ = 0.0;
   bool have_min_ = false;
   int window_samples_ = 0;
+  bool day_closed_ = false;  // this local day's night already published
+  // Hourly mean pressure of the last 24 local hours (slot = hour % 24).
   std::array<double, 24> hour_p_{};
   std::array<int, 24> hour_n_{};
+  std::array<int64_t, 24> hour_id_{};
   // Across nights.
   int nights_ = 0;
   double base_sum_ = 0.0, base_sum2_ = 0.0;
@@ -253,48 +291,77 @@ class NightFlowAnalyzer {
   int trend_n_ = 0, trend_head_ = 0;
 };
 
+
 // ---------------------------------------------------------------------------
 // Continuous district balance and burst detection
 // ---------------------------------------------------------------------------
 
 struct DistrictMonitorOptions {
-  // Block length: one time-of-day bin of the demand profile, s. 86400 must
-  // be a whole number of blocks.
-  double block_s = 900.0;
-  // The cumulative balance is low-pass filtered with this time constant
-  // before blocks are taken (level-transmitter noise on a reservoir enters
-  // as a difference of two volumes; see DEVELOPERS.md), s.
+  // Block length: one time-of-day bin of the profile, and the longest
+  // customer-meter interval the balance can use, s. 86400 must be a whole
+  // number of blocks. Hourly blocks match hourly smart-meter totals.
+  double block_s = 3600.0;
+  // The cumulative zone volume is low-pass filtered with this time constant
+  // (first order) before blocks are taken, so that reservoir-level noise
+  // enters only through the filter (see DEVELOPERS.md), s.
   double filter_s = 600.0;
-  // Days used to learn the time-of-day profile (mean and spread of each
-  // block's residual) before the detectors run.
-  int profile_learning_days = 7;
-  // After that, the profile keeps learning with this time constant in days,
-  // but only while no detector is raised.
-  double profile_time_constant_days = 14.0;
-  // Bins either side pooled into a bin's spread estimate.
-  int spread_pool_bins = 2;
-  // The detectors decide on the quiet hours only: blocks that start in
-  // [quiet_start_h, quiet_end_h) local time (local = UTC + utc_offset_s).
-  // Daytime demand varies from day to day by far more than a burst, and
-  // slowly (a warm day is high all day), so daytime blocks are strongly
-  // autocorrelated; at night the residual is small and nearly white, and a
-  // burst stands out as a step in night flow. A daytime burst is therefore
-  // reported in the following night.
-  double utc_offset_s = 0.0;
+  // Local time, and the quiet hours that make a night for the step detector:
+  // blocks starting in [quiet_start_h, quiet_end_h) local. start > end spans
+  // midnight (e.g. 23 to 4); the night belongs to the date it ends on.
+  UtcOffsetSchedule offsets;
   double quiet_start_h = 0.0;
   double quiet_end_h = 4.0;
-  // Burst sizes the CUSUM bank is tuned to, in units of the profile's
-  // spread (standardised residual). A 0.5-sigma detector false-alarmed on
-  // days of generally higher demand (a day-long offset the AR(1)
-  // prewhitening does not remove) in the simulated demo month.
-  std::vector<double> target_sigmas = {1.0, 2.0, 4.0};
-  // False-alarm budget: mean time between false burst alarms per district.
-  double false_alarm_interval_s = 365.0 * 86400.0;
-  // Fraction of a block's ticks that must be valid for the block to count.
-  double min_valid_fraction = 0.5;
+  // The MNF night window (for the night table's metered use), local hours
+  // within one day.
+  double night_start_h = 2.0;
+  double night_end_h = 4.0;
+  // Weekend days (bit d set = weekday d, 0 = Sunday): Saturday and Sunday.
+  // Nights and profile days are compared within their own kind.
+  unsigned weekend_mask = (1u << 0) | (1u << 6);
+
+  // --- Night path: a step in night flow from one night to the next.
+  // Robust baseline: the median of the last `baseline_nights` usable nights
+  // of the same kind (weekday or weekend; the pooled median while a kind has
+  // fewer than 3), spread from the median absolute deviation (Hampel 1974;
+  // sigma = 1.4826 MAD for normal data).
+  int baseline_nights = 14;
+  // Nights needed before the detector decides; at that point the learning
+  // nights are searched for a step (a burst in the learning period).
+  int min_nights = 5;
+  // Alarm when tonight's value exceeds the baseline by night_alarm_sigmas,
+  // or when two nights in a row exceed it by night_confirm_sigmas; in both
+  // cases by at least min_step_m3_h.
+  double night_alarm_sigmas = 5.0;
+  double night_confirm_sigmas = 3.0;
+  double min_step_m3_h = 0.6;
+  // A night above suspect_sigmas is kept out of the baseline (frozen); after
+  // accept_nights such nights in a row without an alarm the level is taken
+  // as the new normal (a slow rise, not a burst).
+  double suspect_sigmas = 2.5;
+  int accept_nights = 3;
+  // Floors of the spread: absolute, and relative to the baseline level.
+  double min_sigma_m3_h = 0.05;
+  double min_sigma_fraction = 0.005;
+
+  // --- Day path (fast): each block against the time-of-day profile of its
+  // kind of day (median of the last `profile_days` values per bin; spread
+  // from their MAD, pooled over +-1 bin). Alarm when `day_blocks`
+  // consecutive blocks each exceed it by suspect_sigmas, and on average by
+  // day_alarm_sigmas and by day_min_m3_h. While a block is above
+  // suspect_sigmas it is not learnt.
+  int profile_days = 7;
+  int min_profile_days = 3;
+  int day_blocks = 3;
+  double day_alarm_sigmas = 4.0;
+  double day_min_m3_h = 3.5;
+
+  // Customer meters: how long after a block ends to wait for its customer
+  // volume (interval totals arrive at the end of their interval), s.
+  double customer_wait_s = 7200.0;
+  // Fraction of a block's time that must be valid for the block to count.
+  double min_valid_fraction = 0.75;
   // Non-latching by default: each detected burst raises the alarm once (a
-  // one-tick condition), and it returns to normal after the hold, so that a
-  // later burst raises it again.
+  // one-tick condition); it returns to normal after the hold.
   AlarmOptions alarm;
   bool IsValid(std::string* why) const;
 };
@@ -306,77 +373,151 @@ struct DistrictTick {
   double outflow_m3_s = 0.0;        // sum of outlets
   double storage_m3 = 0.0;          // reservoir contents
   double zone_flow_m3_s = 0.0;      // inflow - outflow - dS/dt (filtered)
-  double customer_use_m3_s = 0.0;   // estimated customer use (smart meters, else the learnt profile)
-  double residual_m3_s = 0.0;       // zone flow - customer use (filtered)
   std::string ToString() const;
 };
 
-struct BurstEvidence {
-  bool profile_ready = false;
-  DecisionState state = DecisionState::kLearning;
-  double statistic = 0.0, threshold = 0.0;  // leading detector, sigmas
-  double change_point_s = 0.0;
-  double burst_m3_s = 0.0;  // mean deviation from the profile since the change point
+// One completed block of the balance.
+struct DistrictBlock {
+  double start_s = 0.0;
+  bool ok = false;
+  double zone_m3_h = 0.0;       // mean zone flow over the block
+  double customer_m3_h = std::numeric_limits<double>::quiet_NaN();  // metered / coverage
+  double residual_m3_h = 0.0;   // zone - customer (zone alone without meters)
+  double profile_m3_h = std::numeric_limits<double>::quiet_NaN();   // its bin's median
+  double sigma_m3_h = std::numeric_limits<double>::quiet_NaN();
+  double z = 0.0;               // (residual - profile) / sigma
+  std::string ToString() const;
 };
 
-// Sample-and-hold values arrive as SI numbers from the caller (the aligner),
-// one Step per tick.
+enum class BurstPath : uint8_t { kNight, kDay, kLearning };
+const char* BurstPathName(BurstPath p);
+
+struct BurstReport {
+  double time_s = 0.0;            // when the alarm was raised
+  BurstPath path = BurstPath::kNight;
+  double size_m3_h = 0.0;         // step in the residual
+  double size_ci95_m3_h = 0.0;
+  double change_s = 0.0;          // estimated change time (middle of its interval)
+  double change_ci_s = 0.0;       // half-width of the interval the change lies in
+  double statistic = 0.0, threshold = 0.0;  // in spreads
+  std::string ToString() const;
+};
+
+// The detector's summary of one night (quiet hours), published when the
+// night's blocks are complete.
+struct DistrictNight {
+  int64_t local_day = 0;
+  bool weekend = false;
+  bool usable = false;
+  double quiet_residual_m3_h = 0.0;      // mean residual over the quiet hours
+  double window_zone_m3_h = std::numeric_limits<double>::quiet_NaN();  // mean zone flow, MNF window
+  double window_customer_m3_h = std::numeric_limits<double>::quiet_NaN();
+  double baseline_m3_h = std::numeric_limits<double>::quiet_NaN();
+  double sigma_m3_h = std::numeric_limits<double>::quiet_NaN();
+  double step_m3_h = std::numeric_limits<double>::quiet_NaN();
+  bool suspect = false, alarm = false;
+  double quiet_end_s = 0.0;              // UTC end of the quiet hours
+};
+
+// Sample-and-hold values arrive as SI numbers from the caller, one Step per
+// tick; customer volumes arrive as volumes over intervals, whenever known.
 class DistrictMonitor {
  public:
-  // `district` is the index used in alarm events. `has_customer_meters`:
-  // the caller passes the aggregated smart-meter flow (already scaled for
-  // coverage) to Step; otherwise the learnt time-of-day profile is the
-  // demand model and the residual is the deviation from it.
   bool Init(int district, const DistrictMonitorOptions& options, bool has_customer_meters,
             SequenceCounter* seq, AlarmEventSink* sink, std::string* why);
-  void Step(double t, double dt, bool valid, double inflow_m3_s, double outflow_m3_s, double storage_m3,
-            double customer_use_m3_s);
+  void Step(double t, double dt, bool valid, double inflow_m3_s, double outflow_m3_s, double storage_m3);
+  // Customer use (already divided by coverage) over [t0_s, t1_s), m3.
+  // Spread over the blocks it overlaps in proportion to time. Intervals
+  // longer than a block, or for blocks already decided, are counted and
+  // ignored.
+  void AddCustomerVolume(double t0_s, double t1_s, double volume_m3);
   const DistrictTick& tick() const { return tick_; }
-  const BurstEvidence& evidence() const { return evidence_; }
   const Alarm& alarm() const { return alarm_; }
   Alarm& alarm() { return alarm_; }
-  // Restarts the detectors (e.g. after a repair). A detected burst restarts
-  // them by itself: its size is added to the profile as the new normal.
-  void ResetDetectors(bool false_alarm);
+  // Results of this Step (valid until the next Step): blocks decided, a
+  // night completed, a burst reported.
+  int new_blocks() const { return new_blocks_; }
+  const DistrictBlock& block(int i) const { return done_blocks_[i]; }
+  bool night_done() const { return night_done_; }
+  const DistrictNight& night() const { return last_night_; }
+  bool burst_raised() const { return burst_raised_; }
+  const BurstReport& last_burst() const { return last_burst_; }
   int bursts() const { return bursts_; }
-  const BurstEvidence& last_burst() const { return last_burst_; }
+  uint64_t late_customer_intervals() const { return late_customer_; }
   int bins() const { return bins_; }
-  double profile_mean_m3_s(int bin) const { return mean_[bin]; }
+  // Profile median of a bin for weekdays (kind 0) or weekends (kind 1),
+  // NaN until formed.
+  double profile_m3_h(int kind, int bin) const;
 
  private:
-  void EndBlock(double t);
-  void UpdateProfile(int bin, double dev, double sd);
+  struct Pending {
+    double start_s = 0.0;
+    double zone_m3 = 0.0, zone_valid_s = 0.0, zone_s = 0.0;
+    double cust_m3 = 0.0, cust_s = 0.0;
+  };
+  struct NightAcc {
+    int64_t day = INT64_MIN;
+    double quiet_sum = 0.0; int quiet_ok = 0, quiet_n = 0;
+    double win_zone = 0.0, win_cust = 0.0; int win_ok = 0, win_n = 0;
+    double quiet_first_s = 0.0, quiet_end_s = 0.0;
+  };
+  void OpenBlock(double start_s);
+  Pending* Block(double start_s);  // the pending block starting there, opened if ahead; null if decided
+  void DecideReady(double t);
+  void Decide(const Pending& p, double t);
+  void DayPath(DistrictBlock& b, int kind, int bin, double t);
+  void FinishNight(double t);
+  void NightPath(DistrictNight* n, double t);
+  void Raise(const BurstReport& r);
+  void ShiftBaselines(double step_m3_h);
+  double Median(const double* v, int n) const;
+  bool Weekend(int64_t day) const { return (o_.weekend_mask >> WeekdayOf(day)) & 1u; }
+  bool InQuiet(double hour) const;
+  bool InWindow(double hour) const;
+
   DistrictMonitorOptions o_;
   int district_ = 0;
   bool has_customer_ = false;
-  int bins_ = 96;
-  CusumThresholdTable table_;
-  SegmentDecision decision_;
+  int bins_ = 24;
   Alarm alarm_;
   DistrictTick tick_;
-  BurstEvidence evidence_;
   // Balance state.
   bool have_prev_ = false, started_ = false;
-  double prev_storage_ = 0.0, start_s_ = 0.0;
-  double cum_zone_m3_ = 0.0, cum_cust_m3_ = 0.0;
-  double f_zone_ = 0.0, f_cust_ = 0.0;  // filtered cumulative volumes
-  double prev_f_zone_ = 0.0, prev_f_cust_ = 0.0;
-  // Block state.
-  double block_start_s_ = 0.0, block_zone0_ = 0.0, block_cust0_ = 0.0;
-  double block_dt_ = 0.0, block_valid_dt_ = 0.0;
-  bool block_open_ = false;
-  // Profile per bin (deviation = block residual - mean).
-  std::vector<double> mean_, var_;
-  std::vector<double> learn_;  // bins x profile_learning_days block residuals while learning (NaN = none)
-  int64_t first_day_ = 0;
-  bool profile_ready_ = false;
-  // Raw deviations of recent blocks for the burst size (ring).
-  bool burst_pending_ = false, was_quiet_ = false;
-  BurstEvidence last_burst_;
+  double prev_storage_ = 0.0, prev_in_m3_s_ = 0.0, prev_out_m3_s_ = 0.0;
+  double cum_zone_m3_ = 0.0, f_zone_ = 0.0, prev_f_zone_ = 0.0;
+  // Blocks waiting for their customer volume (ring, oldest first).
+  std::vector<Pending> pending_;
+  int pend_head_ = 0, pend_n_ = 0;
+  double open_start_s_ = 0.0;  // the block being filled (newest pending)
+  bool have_open_ = false;
+  uint64_t late_customer_ = 0;
+  // Per-step outputs.
+  std::vector<DistrictBlock> done_blocks_;
+  int new_blocks_ = 0;
+  bool night_done_ = false, burst_raised_ = false, alarm_pending_ = false;
+  DistrictNight last_night_;
+  BurstReport last_burst_;
   int bursts_ = 0;
-  struct Block { double end_s = 0.0, dev_m3_s = 0.0; };
-  std::vector<Block> recent_;
-  int recent_head_ = 0, recent_n_ = 0;
+  // Profiles: [kind][bin][profile_days] ring of residuals, m3/h.
+  std::vector<double> prof_;
+  std::vector<int> prof_n_, prof_head_;
+  int run_ = 0;                  // consecutive day-path exceedances
+  double run_sum_ = 0.0, run_var_ = 0.0, run_z_ = 0.0, run_start_s_ = 0.0;
+  double day_suppress_until_s_ = -1e300;
+  // Nights: ring of usable nights (value, weekend), oldest first.
+  NightAcc acc_;
+  std::vector<double> night_x_;
+  std::vector<uint8_t> night_we_;
+  std::vector<double> night_end_s_;
+  int nights_head_ = 0, nights_n_ = 0;
+  bool learning_checked_ = false;
+  int suspect_run_ = 0, low_run_ = 0;
+  double suspect_sum_ = 0.0, low_sum_ = 0.0;
+  double prev_step_sigmas_ = 0.0, prev_step_m3_h_ = 0.0;
+  double last_usable_end_s_ = std::numeric_limits<double>::quiet_NaN();
+  double rebase_after_s_ = std::numeric_limits<double>::quiet_NaN();  // after a day alarm
+  std::vector<double> scratch_;
+  mutable std::vector<double> scratch2_;  // Median's work space
 };
 
 }  // namespace holdfast::water

@@ -1384,7 +1384,8 @@ void Compiler::CompileDistricts(const json& doc) {
 void Compiler::CompileDistrict(const json& d, const std::string& path, DistrictSpec* out) {
   CheckKeys(d, path,
             {"id", "name", "inlets", "outlets", "reservoirs", "pressure_reference", "customer_meters", "properties",
-             "service_connections", "mains_length_km", "private_pipe_length_km", "night_flow", "burst_detection"});
+             "service_connections", "mains_length_km", "private_pipe_length_km", "time_zone", "night_flow",
+             "burst_detection", "level_smoothing_s"});
   String(d, "id", path, Need::kRequired, &out->id);
   if (String(d, "name", path, Need::kOptional, &out->name) != Got::kOk) out->name = out->id;
   CompileFlowList(d, "inlets", path, Need::kRequired, &out->inlets);
@@ -1422,7 +1423,7 @@ void Compiler::CompileDistrict(const json& d, const std::string& path, DistrictS
   const json* cm = nullptr;
   if (Object(d, "customer_meters", path, Need::kOptional, &cm) == Got::kOk) {
     const std::string p = path + "/customer_meters";
-    CheckKeys(*cm, p, {"point", "coverage"});
+    CheckKeys(*cm, p, {"point", "coverage", "reading", "interval_s", "volume_unit"});
     std::vector<int> one;
     json holder = json::object();
     if (const json* m = Member(*cm, "point")) holder["inlets"] = json::array({*m});
@@ -1438,6 +1439,22 @@ void Compiler::CompileDistrict(const json& d, const std::string& path, DistrictS
       if (cov > 1.0) Add(p + "/coverage", "must be a fraction in (0, 1] (got " + Num(cov) + ")");
       else out->customer_meter_coverage = cov;
     }
+    static const EnumName<DistrictSpec::MeterReading> kReadings[] = {
+        {"spot", DistrictSpec::MeterReading::kSpot},
+        {"interval_mean", DistrictSpec::MeterReading::kIntervalMean},
+        {"interval_total", DistrictSpec::MeterReading::kIntervalTotal},
+        {"cumulative", DistrictSpec::MeterReading::kCumulative}};
+    Enum(*cm, "reading", p, Need::kOptional, kReadings, &out->customer_meter_reading);
+    double iv = 3600.0;
+    if (Positive(*cm, "interval_s", p, Need::kOptional, &iv) == Got::kOk) {
+      if (iv < 60.0 || iv > 86400.0) Add(p + "/interval_s", "must be 60..86400 s (got " + Num(iv) + ")");
+      else out->customer_meter_interval_s = iv;
+    }
+    std::string vu;
+    if (String(*cm, "volume_unit", p, Need::kOptional, &vu) == Got::kOk) {
+      UnitConversion c;
+      if (Unit(vu, {Quantity::kVolume}, p + "/volume_unit", &c)) out->customer_meter_volume_m3 = c.factor;
+    }
   }
   const json* props = nullptr;
   if (Object(d, "properties", path, Need::kRequired, &props) == Got::kOk) {
@@ -1450,6 +1467,13 @@ void Compiler::CompileDistrict(const json& d, const std::string& path, DistrictS
   NonNegative(d, "service_connections", path, Need::kRequired, &out->service_connections);
   Positive(d, "mains_length_km", path, Need::kRequired, &out->mains_length_km);
   NonNegative(d, "private_pipe_length_km", path, Need::kOptional, &out->private_pipe_length_km);
+  if (String(d, "time_zone", path, Need::kOptional, &out->time_zone) == Got::kOk && out->time_zone.empty())
+    Add(path + "/time_zone", "must name an IANA zone such as \"Europe/London\" or a POSIX TZ rule");
+  double smooth = 0.0;
+  if (NonNegative(d, "level_smoothing_s", path, Need::kOptional, &smooth) == Got::kOk) {
+    if (smooth > 3600.0) Add(path + "/level_smoothing_s", "must be 0..3600 s (got " + Num(smooth) + ")");
+    else out->level_smoothing_s = smooth;
+  }
 
   const json* nf = nullptr;
   if (Object(d, "night_flow", path, Need::kOptional, &nf) == Got::kOk) {
@@ -1492,7 +1516,24 @@ void Compiler::CompileDistrict(const json& d, const std::string& path, DistrictS
   const json* bd = nullptr;
   if (Object(d, "burst_detection", path, Need::kOptional, &bd) == Got::kOk) {
     const std::string p = path + "/burst_detection";
-    CheckKeys(*bd, p, {"false_alarm_interval_days", "profile_learning_days"});
+    CheckKeys(*bd, p,
+              {"false_alarm_interval_days", "profile_learning_days", "quiet_start_h", "quiet_end_h",
+               "night_alarm_sigmas", "min_step_m3_h", "day_min_m3_h", "day_alarm_sigmas"});
+    const bool qs = NonNegative(*bd, "quiet_start_h", p, Need::kOptional, &out->quiet_start_h) != Got::kBad;
+    const bool qe = Positive(*bd, "quiet_end_h", p, Need::kOptional, &out->quiet_end_h) != Got::kBad;
+    if (qs && qe) {
+      const double len = out->quiet_end_h > out->quiet_start_h ? out->quiet_end_h - out->quiet_start_h
+                                                               : out->quiet_end_h + 24.0 - out->quiet_start_h;
+      if (out->quiet_start_h >= 24.0 || out->quiet_end_h > 24.0 || out->quiet_start_h == out->quiet_end_h || len > 12.0)
+        Add(p + "/quiet_end_h", "quiet hours must lie in 0..24 h, differ, and last at most 12 h (got " +
+                                    Num(out->quiet_start_h) + " to " + Num(out->quiet_end_h) + ")");
+    }
+    Positive(*bd, "night_alarm_sigmas", p, Need::kOptional, &out->night_alarm_sigmas);
+    NonNegative(*bd, "min_step_m3_h", p, Need::kOptional, &out->min_step_m3_h);
+    NonNegative(*bd, "day_min_m3_h", p, Need::kOptional, &out->day_min_m3_h);
+    Positive(*bd, "day_alarm_sigmas", p, Need::kOptional, &out->day_alarm_sigmas);
+    if (out->night_alarm_sigmas < 3.0)
+      Add(p + "/night_alarm_sigmas", "must be at least 3 (got " + Num(out->night_alarm_sigmas) + ")");
     double days = 365.0;
     if (Positive(*bd, "false_alarm_interval_days", p, Need::kOptional, &days) == Got::kOk) {
       if (days < 1.0) Add(p + "/false_alarm_interval_days", "must be at least 1 day (got " + Num(days) + ")");

@@ -66,6 +66,10 @@ const UnitEntry kUnits[] = {
     {"mbar", Quantity::kPressure, 1e2, 0.0},
     {"psi", Quantity::kPressure, kPsi_pa, 0.0},
     {"kgf/cm2", Quantity::kPressure, kKgfPerCm2_pa, 0.0},
+    // Head of water, conventional: 1000 kg/m3 x standard gravity 9.80665 m/s2
+    // (the conventional metre and foot of water, NIST SP 811, appendix B.8).
+    {"mH2O", Quantity::kPressure, 9806.65, 0.0},
+    {"ftH2O", Quantity::kPressure, kFoot_m * 9806.65, 0.0},
     // Temperature -> K
     {"K", Quantity::kTemperature, 1.0, 0.0},
     {"degC", Quantity::kTemperature, 1.0, kZeroCelsius_k},

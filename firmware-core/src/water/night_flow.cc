@@ -3,6 +3,7 @@
 // trend across nights. See holdfast/water.h.
 #include <algorithm>
 #include <cmath>
+#include <cstdint>
 #include <cstdio>
 #include <limits>
 #include <string>
@@ -20,7 +21,7 @@ constexpr int kMinHdfHours = 20;
 
 bool NightFlowOptions::IsValid(std::string* why) const {
   auto fail = [&](const std::string& m) { if (why) *why = "night flow: " + m; return false; };
-  if (!(std::fabs(utc_offset_s) <= 14.0 * 3600.0)) return fail("utc_offset must be within +-14 h");
+  if (!offsets.IsValid(why)) return false;
   if (!(window_start_h >= 0.0 && window_end_h <= 24.0 && window_end_h > window_start_h))
     return fail("the night window must satisfy 0 <= start < end <= 24 h");
   if (!(step_s > 0.0 && step_s <= 3600.0)) return fail("step must be in (0, 3600] s");
@@ -71,6 +72,10 @@ bool NightFlowAnalyzer::Init(const NightFlowOptions& options, const DistrictProp
   ring_head_ = ring_filled_ = ring_valid_ = 0;
   sum_q_ = sum_p_ = 0.0;
   have_day_ = false;
+  day_closed_ = false;
+  hour_p_.fill(0.0);
+  hour_n_.fill(0);
+  hour_id_.fill(INT64_MIN);
   nights_ = 0;
   base_sum_ = base_sum2_ = base_mean_ = base_sigma_ = cusum_ = 0.0;
   trend_ring_.assign(o_.trend_nights, 0.0);
@@ -81,17 +86,24 @@ bool NightFlowAnalyzer::Init(const NightFlowOptions& options, const DistrictProp
 
 bool NightFlowAnalyzer::Step(double t, bool valid, double q_m3_s, double p_head_m) {
   if (!std::isfinite(t) || std::fabs(t) > 1e12) return false;  // not a time: ignored
-  const double local = t + o_.utc_offset_s;
-  const int64_t day = static_cast<int64_t>(std::floor(local / kSecondsPerDay));
+  const double local = o_.offsets.Local(t);
+  const int64_t day = LocalDayOf(local);
+  const double hour = (local - static_cast<double>(day) * kSecondsPerDay) / kSecondsPerHour;
   bool closed = false;
-  if (have_day_ && day != day_) closed = CloseDay();
+  // A day left without its night published (data ending inside the window,
+  // or a gap) is closed with what it has.
+  if (have_day_ && day != day_ && !day_closed_) closed = CloseDay();
   if (!have_day_ || day != day_) {
     have_day_ = true;
     day_ = day;
+    day_closed_ = false;
     have_min_ = false;
     window_samples_ = 0;
-    hour_p_.fill(0.0);
-    hour_n_.fill(0);
+  }
+  // Publish the night as soon as its window has closed.
+  if (!day_closed_ && hour >= o_.window_end_h - 1e-9) {
+    closed = CloseDay() || closed;
+    day_closed_ = true;
   }
   valid = valid && std::isfinite(q_m3_s) && std::isfinite(p_head_m);
   // Moving average ring (a running sum of the valid samples it holds).
@@ -115,12 +127,18 @@ bool NightFlowAnalyzer::Step(double t, bool valid, double q_m3_s, double p_head_
   ring_head_ = (ring_head_ + 1) % ring_n_;
   if (ring_valid_ == 0) sum_q_ = sum_p_ = 0.0;  // no drift of the running sums through gaps
 
-  const double hour = (local - static_cast<double>(day) * kSecondsPerDay) / kSecondsPerHour;
   if (valid) {
-    const int h = std::clamp(static_cast<int>(hour), 0, 23);
-    hour_p_[h] += p_head_m;
-    ++hour_n_[h];
+    const int64_t hid = static_cast<int64_t>(std::floor(local / kSecondsPerHour));
+    const int slot = static_cast<int>(((hid % 24) + 24) % 24);
+    if (hour_id_[slot] != hid) {
+      hour_id_[slot] = hid;
+      hour_p_[slot] = 0.0;
+      hour_n_[slot] = 0;
+    }
+    hour_p_[slot] += p_head_m;
+    ++hour_n_[slot];
   }
+  if (day_closed_) return closed;
   // The averaging span must lie inside the window: its start is
   // averaging_s before this sample.
   const double span_start_h = hour - (o_.averaging_s - o_.step_s) / kSecondsPerHour;
@@ -139,7 +157,7 @@ bool NightFlowAnalyzer::Step(double t, bool valid, double q_m3_s, double p_head_
 }
 
 bool NightFlowAnalyzer::Finish() {
-  if (!have_day_) return false;
+  if (!have_day_ || day_closed_) return false;
   const bool closed = CloseDay();
   have_day_ = false;
   return closed;
@@ -156,14 +174,16 @@ bool NightFlowAnalyzer::CloseDay() {
   r.legitimate_night_use_m3_h = legit_m3_h_;
   r.night_leakage_m3_h = r.mnf_m3_h - legit_m3_h_;
   r.valid_samples = window_samples_;
-  // Hour-day factor from the day's hourly mean pressures against the
-  // pressure at the MNF; missing hours (up to 24 - kMinHdfHours) are
-  // represented by the mean of the hours present.
+  // Hour-day factor from the hourly mean pressures of the 24 local hours
+  // before the window's end against the pressure at the MNF; missing hours
+  // (up to 24 - kMinHdfHours) are represented by the mean of the hours
+  // present.
   int hours = 0;
   double sum = 0.0;
   std::array<double, 24> p{};
+  const int64_t end_hid = day_ * 24 + static_cast<int64_t>(std::ceil(o_.window_end_h - 1e-9));
   for (int h = 0; h < 24; ++h) {
-    if (hour_n_[h] > 0) p[hours++] = hour_p_[h] / hour_n_[h];
+    if (hour_n_[h] > 0 && hour_id_[h] >= end_hid - 24 && hour_id_[h] < end_hid) p[hours++] = hour_p_[h] / hour_n_[h];
   }
   if (hours >= kMinHdfHours && r.night_pressure_head_m > 0.0) {
     sum = HourDayFactor_h(p.data(), hours, 1.0, r.night_pressure_head_m, o_.n1);
