@@ -9,6 +9,7 @@
 
 #include <CLI/CLI.hpp>
 
+#include "holdfast/aligner.h"
 #include "holdfast/site.h"
 
 namespace holdfast::cli {
@@ -24,6 +25,12 @@ struct Registrar {
 // JSON pointer) and a hint to run check-config on standard error, and
 // returns false (the command then exits 2).
 bool LoadSiteOrSay(const std::string& path, Site* site);
+
+// The aligner's counters in words for a command's summary. The core's
+// `late` counter (a reading stamped at or before a tick already computed) is
+// shown as `after_tick`: such readings are not rejected, they are held and
+// used from the next tick on (README, "Readings file").
+std::string ReadingCounts(const AlignerCounters& c);
 
 }  // namespace holdfast::cli
 
