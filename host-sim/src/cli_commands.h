@@ -32,6 +32,15 @@ bool LoadSiteOrSay(const std::string& path, Site* site);
 // used from the next tick on (README, "Readings file").
 std::string ReadingCounts(const AlignerCounters& c);
 
+// Finds a helper script (e.g. "evaluate-report.py"): installed beside the
+// executable (<exe>/../share/holdfast/NAME, then <exe>/NAME), else in the
+// source tree's tools/ this binary was built from. Returns false and lists
+// the places tried in *tried.
+bool FindToolScript(const std::string& name, std::string* path, std::string* tried);
+
+// Runs `python3 SCRIPT ARGS...` (arguments shell-quoted); the exit status.
+int RunPython(const std::string& script, const std::vector<std::string>& args);
+
 }  // namespace holdfast::cli
 
 #define HOLDFAST_REGISTER_COMMAND(fn) \
