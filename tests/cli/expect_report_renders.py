@@ -5,10 +5,11 @@ every image loaded.
 Runs balance on the demo readings (every 30th tick row), the report
 with the demo truth, then loads a copy of the page in headless Chromium with
 a one-line script that counts the images decoded (complete, naturalWidth > 0)
-and reads that count back from --dump-dom. A page given as a further argument
-(e.g. an evaluation report.html) is checked the same way.
+and reads that count back from --dump-dom. With EVALDIR (evaluation.json and
+summary.md of `holdfast evaluate`; tests/cli/evaluate-fixture holds the quick
+demo batch's), tools/evaluate-report.py renders its page, checked the same way.
 
-Usage: expect_report_renders.py HOLDFAST SITE READINGS TRUTH WORKDIR [PAGE...]
+Usage: expect_report_renders.py HOLDFAST SITE READINGS TRUTH WORKDIR [EVALDIR]
 """
 import os
 import re
@@ -17,7 +18,7 @@ import subprocess
 import sys
 
 holdfast, site, data, truth, work = sys.argv[1:6]
-extra_pages = sys.argv[6:]
+evaldir = sys.argv[6] if len(sys.argv) > 6 else None
 os.makedirs(work, exist_ok=True)
 failures = []
 
@@ -38,41 +39,58 @@ if r.returncode != 0:
     print("FAIL: report exit %d: %s%s" % (r.returncode, r.stdout, r.stderr))
     sys.exit(1)
 
-PROBE = ("<script>window.addEventListener('load', function () {"
-         " var ok = 0; for (var i = 0; i < document.images.length; i++) {"
-         " var im = document.images[i]; if (im.complete && im.naturalWidth > 0) ok++; }"
-         " document.body.setAttribute('data-images-loaded', ok + '/' + document.images.length); });</script>")
+# One Chromium start for every page (it takes most of the test's time): a
+# wrapper holds each page in an iframe and, once all have loaded, writes each
+# page's count of decoded images (complete, naturalWidth > 0) into its DOM.
+PROBE = """<!DOCTYPE html><html><body>%s<script>
+window.addEventListener('load', function () {
+  var out = [];
+  var frames = document.getElementsByTagName('iframe');
+  for (var f = 0; f < frames.length; f++) {
+    var d = frames[f].contentDocument, ok = 0, n = -1;
+    if (d) { n = d.images.length; for (var i = 0; i < n; i++) { var im = d.images[i];
+      if (im.complete && im.naturalWidth > 0) ok++; } }
+    out.push(ok + '/' + n);
+  }
+  document.body.setAttribute('data-images-loaded', out.join(';'));
+});</script></body></html>"""
 
+pages = [(page, 4)]
+if evaldir:
+    ev_work = os.path.join(work, "evaluate")
+    os.makedirs(ev_work, exist_ok=True)
+    for name in ("evaluation.json", "summary.md"):
+        shutil.copy(os.path.join(evaldir, name), ev_work)
+    script = os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "..", "tools", "evaluate-report.py")
+    r = subprocess.run(["/usr/bin/python3", script, ev_work], capture_output=True, text=True, timeout=120)
+    if r.returncode != 0:
+        failures.append("evaluate-report.py: exit %d: %s" % (r.returncode, r.stderr[-1500:]))
+    else:
+        pages.append((os.path.join(ev_work, "report.html"), 4))
 
-def check(path, min_images):
-    text = open(path, encoding="utf-8").read()
-    expected = len(re.findall(r"<img\b", text))
-    probe = os.path.join(work, "probe-" + os.path.basename(os.path.dirname(os.path.abspath(path))) + ".html")
-    with open(probe, "w", encoding="utf-8") as f:
-        f.write(text.replace("</body>", PROBE + "</body>"))
-    try:
-        d = subprocess.run([chromium, "--headless", "--no-sandbox", "--disable-gpu", "--virtual-time-budget=5000",
-                            "--dump-dom", "file://" + os.path.abspath(probe)],
-                           capture_output=True, text=True, timeout=90)
-    except subprocess.TimeoutExpired:
-        failures.append("%s: chromium did not finish within 90 s" % path)
-        return
-    m = re.search(r'data-images-loaded="(\d+)/(\d+)"', d.stdout)
+wrapper = os.path.join(work, "probe.html")
+with open(wrapper, "w", encoding="utf-8") as f:
+    f.write(PROBE % "".join('<iframe src="file://%s" width="1000" height="800"></iframe>' % os.path.abspath(p)
+                            for p, _ in pages))
+try:
+    d = subprocess.run([chromium, "--headless", "--no-sandbox", "--disable-gpu", "--allow-file-access-from-files",
+                        "--dump-dom", "file://" + os.path.abspath(wrapper)], capture_output=True, text=True,
+                       timeout=90)
+    m = re.search(r'data-images-loaded="([^"]*)"', d.stdout)
     if not m:
-        failures.append("%s: the page did not render (no load event); chromium exit %d: %s" %
-                        (path, d.returncode, d.stderr[-800:]))
-        return
-    loaded, total = int(m.group(1)), int(m.group(2))
-    print("%s: %d of %d images loaded" % (path, loaded, total))
-    if total != expected or loaded != total:
-        failures.append("%s: %d of %d images loaded (%d <img> in the file)" % (path, loaded, total, expected))
-    if total < min_images:
-        failures.append("%s: %d images, expected at least %d" % (path, total, min_images))
+        failures.append("the pages did not render (no load event); chromium exit %d: %s" %
+                        (d.returncode, d.stderr[-800:]))
+    else:
+        for (path, least), got in zip(pages, m.group(1).split(";")):
+            loaded, total = (int(v) for v in got.split("/"))
+            expected = len(re.findall(r"<img\b", open(path, encoding="utf-8").read()))
+            print("%s: %d of %d images loaded" % (path, loaded, total))
+            if total != expected or loaded != total or total < least:
+                failures.append("%s: %d of %d images loaded (%d <img> in the file, at least %d expected)" %
+                                (path, loaded, total, expected, least))
+except subprocess.TimeoutExpired:
+    failures.append("chromium did not finish within 90 s")
 
-
-check(page, 4)
-for p in extra_pages:
-    check(p, 1)
 for f in failures:
     print("FAIL: " + f)
 sys.exit(1 if failures else 0)
