@@ -40,6 +40,16 @@ void AppendJsonString(std::string_view text, std::string* out) {
   out->push_back('"');
 }
 
+const char* StatisticUnit(AlarmType type) {
+  switch (type) {
+    case AlarmType::kLeak:
+    case AlarmType::kRupture: return "block_sigma";
+    case AlarmType::kDataQuality: return "points";
+    case AlarmType::kBalanceUnavailable: return "none";
+  }
+  return "none";
+}
+
 void AppendEventJson(const Site& site, const AlarmEvent& e, std::string* out) {
   out->append("{\"time\":\"");
   out->append(FormatIsoUtc(e.time_s, 3));
@@ -69,6 +79,18 @@ void AppendEventJson(const Site& site, const AlarmEvent& e, std::string* out) {
   AppendNumber(e.evidence.statistic, "%.4f", out);
   out->append(",\"threshold\":");
   AppendNumber(e.evidence.threshold, "%.4f", out);
+  // The unit of statistic and threshold: the leak and rupture detectors are
+  // CUSUMs of block residuals standardised by the learnt block sigma
+  // (dimensionless, in sigmas); the data-quality statistic counts the
+  // segment's unusable points. null when the event carries no statistic.
+  out->append(",\"statistic_unit\":");
+  if (!std::isfinite(e.evidence.statistic)) {
+    out->append("null");
+  } else {
+    out->push_back('"');
+    out->append(StatisticUnit(e.type));
+    out->push_back('"');
+  }
   out->append(",\"window_s\":");
   AppendNumber(e.evidence.window_s, "%.1f", out);
   out->append(",\"user\":");

@@ -19,6 +19,9 @@
 //   location_m      estimated leak chainage from the segment inlet, m, 1 decimal; null when unknown
 //   statistic       detector statistic, 4 decimals; null when unknown
 //   threshold       its alarm threshold, 4 decimals; null when unknown
+//   statistic_unit  unit of statistic and threshold: block_sigma (leak, rupture: CUSUM of
+//                   block residuals standardised by the learnt block sigma), points
+//                   (data_quality: unusable points); null when statistic is null
 //   window_s        balance window behind the evidence, s, 1 decimal; null when unknown
 //   user            operator for operator commands, "" otherwise
 //
@@ -38,6 +41,9 @@ namespace holdfast {
 std::string EventJson(const Site& site, const AlarmEvent& event);
 // Appends the same text to *out.
 void AppendEventJson(const Site& site, const AlarmEvent& event, std::string* out);
+
+// The unit of an event's statistic and threshold for an alarm type (above).
+const char* StatisticUnit(AlarmType type);
 
 // Appends `text` as a JSON string literal, quotes included.
 void AppendJsonString(std::string_view text, std::string* out);

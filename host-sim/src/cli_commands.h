@@ -9,6 +9,7 @@
 
 #include <CLI/CLI.hpp>
 
+#include "holdfast/aligner.h"
 #include "holdfast/site.h"
 
 namespace holdfast::cli {
@@ -24,6 +25,21 @@ struct Registrar {
 // JSON pointer) and a hint to run check-config on standard error, and
 // returns false (the command then exits 2).
 bool LoadSiteOrSay(const std::string& path, Site* site);
+
+// The aligner's counters in words for a command's summary. The core's
+// `late` counter (a reading stamped at or before a tick already computed) is
+// shown as `after_tick`: such readings are not rejected, they are held and
+// used from the next tick on (README, "Readings file").
+std::string ReadingCounts(const AlignerCounters& c);
+
+// Finds a helper script (e.g. "evaluate-report.py"): installed beside the
+// executable (<exe>/../share/holdfast/NAME, then <exe>/NAME), else in the
+// source tree's tools/ this binary was built from. Returns false and lists
+// the places tried in *tried.
+bool FindToolScript(const std::string& name, std::string* path, std::string* tried);
+
+// Runs `python3 SCRIPT ARGS...` (arguments shell-quoted); the exit status.
+int RunPython(const std::string& script, const std::vector<std::string>& args);
 
 }  // namespace holdfast::cli
 

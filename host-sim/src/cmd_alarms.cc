@@ -28,17 +28,25 @@
 #include <nlohmann/json.hpp>
 
 #include "cli_commands.h"
+#include "holdfast/alarm.h"
 
 namespace holdfast::cli {
 namespace {
 
 constexpr double kConnectTimeout_s = 10.0;
+// A shelve asked for longer than this is refused here, before sending: it is
+// almost surely a unit slip (the daemon would cap it at the alarm's
+// max_shelve_s anyway).
+constexpr double kMaxShelveRequest_s = 30.0 * 86400.0;
+// Exit status (main.cc): 1 runtime failure, 2 usage error.
+constexpr int kExitRuntime = 1;
+constexpr int kExitUsage = 2;
 
 struct AlarmsArgs {
   std::string broker = "tcp://127.0.0.1:1883";
   std::string prefix = "holdfast/v1/site";
   std::string credentials, cafile, cert, key;
-  std::string segment, alarm = "leak", reason;
+  std::string segment, alarm, reason;
   double duration_s = 0.0;
   double timeout_s = 15.0;
   int count = 0;  // watch: exit after this many distinct events (0 = forever)
@@ -81,13 +89,15 @@ class Session : public mqtt::callback {
       : client_(a.broker, "holdfast-alarms-" + std::to_string(::getpid())) {
     client_.set_callback(*this);
   }
-  bool Connect(const AlarmsArgs& a, std::string* user) {
+  // 0 when connected; kExitUsage for an unusable credentials file;
+  // kExitRuntime when the broker cannot be reached or refuses.
+  int Connect(const AlarmsArgs& a, std::string* user) {
     mqtt::connect_options o;
     o.set_clean_session(true);
     o.set_connect_timeout(static_cast<int>(kConnectTimeout_s));
     std::string password;
     if (!a.credentials.empty()) {
-      if (!ReadCredentials(a.credentials, user, &password)) return false;
+      if (!ReadCredentials(a.credentials, user, &password)) return kExitUsage;
       o.set_user_name(*user);
       o.set_password(password);
     }
@@ -106,9 +116,9 @@ class Session : public mqtt::callback {
       client_.connect(o)->wait();
     } catch (const mqtt::exception& e) {
       std::fprintf(stderr, "holdfast alarms: cannot connect to %s: %s\n", a.broker.c_str(), e.what());
-      return false;
+      return kExitRuntime;
     }
-    return true;
+    return 0;
   }
   bool Subscribe(const std::string& filter) {
     try {
@@ -172,7 +182,8 @@ std::string Str(const nlohmann::json& j, const char* key) {
 int Watch(const AlarmsArgs& a) {
   Session s(a);
   std::string user;
-  if (!s.Connect(a, &user) || !s.Subscribe(a.prefix + "/events/#")) return 2;
+  if (const int rc = s.Connect(a, &user)) return rc;
+  if (!s.Subscribe(a.prefix + "/events/#")) return kExitRuntime;
   std::fprintf(stderr, "holdfast alarms: watching %s/events/# on %s\n", a.prefix.c_str(), a.broker.c_str());
   if (a.since_seq >= 0) {
     // Catch up: the daemon republishes every event it still keeps from this
@@ -237,6 +248,19 @@ int SendCommand(const AlarmsArgs& a, const std::string& command) {
     std::fprintf(stderr, "holdfast alarms %s: --segment is required\n", command.c_str());
     return 2;
   }
+  AlarmType type;
+  if (!ParseAlarmType(a.alarm, &type)) {
+    std::fprintf(stderr, "holdfast alarms %s: --alarm: unknown alarm '%s'; one of: leak, rupture, data_quality, "
+                 "balance_unavailable\n", command.c_str(), a.alarm.c_str());
+    return kExitUsage;
+  }
+  if (command == "shelve" && !(std::isfinite(a.duration_s) && a.duration_s > 0.0 &&
+                               a.duration_s <= kMaxShelveRequest_s)) {
+    std::fprintf(stderr, "holdfast alarms shelve: --for: the duration must be a number of seconds above 0 and at "
+                 "most %.0f (30 days; got %g); the daemon caps it at the alarm's max_shelve_s\n",
+                 kMaxShelveRequest_s, a.duration_s);
+    return kExitUsage;
+  }
   if (a.credentials.empty()) {
     std::fprintf(stderr, "holdfast alarms %s: --credentials is required (the daemon acts on your user name)\n",
                  command.c_str());
@@ -244,7 +268,8 @@ int SendCommand(const AlarmsArgs& a, const std::string& command) {
   }
   Session s(a);
   std::string user;
-  if (!s.Connect(a, &user) || !s.Subscribe(a.prefix + "/replies/" + user)) return 2;
+  if (const int rc = s.Connect(a, &user)) return rc;
+  if (!s.Subscribe(a.prefix + "/replies/" + user)) return kExitRuntime;
   nlohmann::json c;
   const std::string id = "cli-" + std::to_string(::getpid()) + "-" +
                          std::to_string(std::chrono::system_clock::now().time_since_epoch().count() % 1000000);
@@ -255,7 +280,7 @@ int SendCommand(const AlarmsArgs& a, const std::string& command) {
   c["user"] = user;
   if (command == "shelve") c["duration_s"] = a.duration_s;
   if (!a.reason.empty()) c["reason"] = a.reason;
-  if (!s.Publish(a.prefix + "/commands/" + user, c.dump())) return 2;
+  if (!s.Publish(a.prefix + "/commands/" + user, c.dump())) return kExitRuntime;
   const auto deadline = std::chrono::steady_clock::now() + std::chrono::duration<double>(a.timeout_s);
   std::pair<std::string, std::string> m;
   while (std::chrono::steady_clock::now() < deadline) {
@@ -291,7 +316,8 @@ void AddCommon(CLI::App* c, AlarmsArgs* a) {
 
 void AddTarget(CLI::App* c, AlarmsArgs* a) {
   c->add_option("--segment", a->segment, "segment id")->required();
-  c->add_option("--alarm", a->alarm, "leak | rupture | data_quality | balance_unavailable")->capture_default_str();
+  c->add_option("--alarm", a->alarm, "which alarm: leak | rupture | data_quality | balance_unavailable (required)")
+      ->required();
   c->add_option("--reason", a->reason, "free text for the audit log");
 }
 

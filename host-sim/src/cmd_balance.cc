@@ -5,6 +5,8 @@
 #include <string>
 #include <vector>
 
+#include <nlohmann/json.hpp>
+
 #include "cli_commands.h"
 #include "event_json.h"
 #include "holdfast/monitor.h"
@@ -31,6 +33,28 @@ std::string Num(double v, const char* fmt = "%.6f") {
   return buf;
 }
 
+// One CSV field (RFC 4180, section 2): quoted when it holds a comma, a
+// double quote or a line break, with inner quotes doubled.
+std::string CsvField(const std::string& v) {
+  if (v.find_first_of(",\"\r\n") == std::string::npos) return v;
+  std::string out = "\"";
+  for (char c : v) {
+    if (c == '"') out += '"';
+    out += c;
+  }
+  return out + "\"";
+}
+
+// The flags of a tick joined with '|' (the core joins them with commas),
+// so that the CSV field needs no quoting and splits on one character.
+std::string PipeFlags(uint32_t flags) {
+  std::string s = SegmentFlagNames(flags);
+  for (char& c : s) {
+    if (c == ',') c = '|';
+  }
+  return s;
+}
+
 void WriteHeader(std::FILE* f, const BalanceArgs& a, const SegmentTick& t) {
   if (a.format != "csv") return;
   std::fprintf(f, "time,segment,status,inflow_kg_s,outflow_kg_s,linepack_kg,tank_kg,inventory_kg,"
@@ -45,9 +69,9 @@ void WriteHeader(std::FILE* f, const BalanceArgs& a, const SegmentTick& t) {
 
 void WriteRow(std::FILE* f, const BalanceArgs& a, const std::string& seg, const SegmentTick& t) {
   const std::string time = FormatIsoUtc(t.time_s, 3);
-  const std::string flags = SegmentFlagNames(t.flags);
   if (a.format == "csv") {
-    std::fprintf(f, "%s,%s,%s,%.6f,%.6f,%.3f,%.3f,%.3f,%.6f,%.6f,%.1f,%.4f", time.c_str(), seg.c_str(),
+    const std::string flags = CsvField(PipeFlags(t.flags));
+    std::fprintf(f, "%s,%s,%s,%.6f,%.6f,%.3f,%.3f,%.3f,%.6f,%.6f,%.1f,%.4f", time.c_str(), CsvField(seg).c_str(),
                  SegmentStatusName(t.status), t.inflow_kg_s, t.outflow_kg_s, t.linepack_kg, t.tank_kg,
                  t.inventory_kg, t.inventory_rate_kg_s, t.residual_kg_s, t.mean_pressure_pa,
                  t.mean_temperature_k);
@@ -69,10 +93,10 @@ void WriteRow(std::FILE* f, const BalanceArgs& a, const std::string& seg, const 
     return;
   }
   std::fprintf(f,
-               "{\"time\":\"%s\",\"segment\":\"%s\",\"status\":\"%s\",\"inflow_kg_s\":%.6f,\"outflow_kg_s\":%.6f,"
+               "{\"time\":\"%s\",\"segment\":%s,\"status\":\"%s\",\"inflow_kg_s\":%.6f,\"outflow_kg_s\":%.6f,"
                "\"linepack_kg\":%.3f,\"tank_kg\":%.3f,\"inventory_kg\":%.3f,\"inventory_rate_kg_s\":%.6f,"
                "\"residual_kg_s\":%.6f,\"mean_pressure_pa\":%.1f,\"mean_temperature_k\":%.4f,\"windows\":[",
-               time.c_str(), seg.c_str(), SegmentStatusName(t.status), t.inflow_kg_s, t.outflow_kg_s,
+               time.c_str(), nlohmann::json(seg).dump().c_str(), SegmentStatusName(t.status), t.inflow_kg_s, t.outflow_kg_s,
                t.linepack_kg, t.tank_kg, t.inventory_kg, t.inventory_rate_kg_s, t.residual_kg_s,
                t.mean_pressure_pa, t.mean_temperature_k);
   for (int i = 0; i < t.window_count; ++i) {
@@ -84,11 +108,12 @@ void WriteRow(std::FILE* f, const BalanceArgs& a, const std::string& seg, const 
   }
   const DecisionResult& d = t.decision;
   const bool lead = t.decision_enabled && d.leading >= 0;
-  std::fprintf(f, "],\"decision\":%s%s%s,\"leak_rate_kg_s\":%s,\"location_m\":%s,\"leak_alarm\":\"%s\",\"flags\":\"%s\"}\n",
+  std::fprintf(f, "],\"decision\":%s%s%s,\"leak_rate_kg_s\":%s,\"location_m\":%s,\"leak_alarm\":\"%s\",\"flags\":%s}\n",
                t.decision_enabled ? "\"" : "", t.decision_enabled ? DecisionStateName(d.state) : "null",
                t.decision_enabled ? "\"" : "", lead ? Num(d.leak_rate_kg_s).c_str() : "null",
                t.location.valid ? Num(t.location.chainage_m, "%.1f").c_str() : "null",
-               AlarmStateName(t.alarms[static_cast<int>(AlarmType::kLeak)]), flags.c_str());
+               AlarmStateName(t.alarms[static_cast<int>(AlarmType::kLeak)]),
+               nlohmann::json(SegmentFlagNames(t.flags)).dump().c_str());
 }
 
 // --reorder-window-s, --max-lead-s, --lead-quorum: data time as holdfastd
@@ -183,7 +208,7 @@ int RunBalance(const BalanceArgs& a) {
   if (events && events != stdout) std::fclose(events);
   std::fprintf(stderr, "%s: %llu rows, %llu bad; %llu ticks; readings %s\n", reader.path().c_str(),
                static_cast<unsigned long long>(reader.rows()), static_cast<unsigned long long>(reader.bad_rows()),
-               static_cast<unsigned long long>(ticks), monitor.counters().ToString().c_str());
+               static_cast<unsigned long long>(ticks), ReadingCounts(monitor.counters()).c_str());
   std::fprintf(stderr, "%llu alarm event(s)%s\n", static_cast<unsigned long long>(event_count),
                a.events.empty() ? " (write them with --events FILE)" : "");
   for (const auto& e : reader.errors())

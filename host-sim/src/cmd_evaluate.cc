@@ -16,24 +16,15 @@
 #include "evaluate.h"
 #include "site_file.h"
 
-#ifndef HOLDFAST_REPORT_SCRIPT
-#define HOLDFAST_REPORT_SCRIPT "tools/evaluate-report.py"
-#endif
-
 namespace holdfast::cli {
 namespace {
 
 struct EvaluateArgs {
-  std::string config, batch, out, report_script = HOLDFAST_REPORT_SCRIPT, family;
+  std::string config, batch, out, report_script, family;  // report_script empty: FindToolScript
   int jobs = 0;
   bool no_report = false, quiet = false;
 };
 
-std::string ShellQuote(const std::string& s) {
-  std::string q = "'";
-  for (char c : s) q += c == '\'' ? std::string("'\\''") : std::string(1, c);
-  return q + "'";
-}
 
 int RunFamily(const EvaluateArgs& a, const Site& site, const sim::BatchSpec& batch, const std::string& out,
               std::string* criteria);
@@ -136,12 +127,16 @@ int RunFamily(const EvaluateArgs& a, const Site& site, const sim::BatchSpec& bat
   std::printf("%s", md.c_str());
   std::printf("\nwrote %ssummary.md, summary.csv, runs.csv, evaluation.json\n", dir.c_str());
   if (a.no_report) return 0;
-  const char* python = ::access("/usr/bin/python3", X_OK) == 0 ? "/usr/bin/python3" : "python3";
-  const std::string cmd = std::string(python) + " " + ShellQuote(a.report_script) + " " + ShellQuote(out);
-  const int rc = std::system(cmd.c_str());
+  std::string script = a.report_script, tried;
+  if (script.empty() && !FindToolScript("evaluate-report.py", &script, &tried)) {
+    std::fprintf(stderr, "report: evaluate-report.py not found (tried %s); the tables above are complete. "
+                 "Give it with --report-script.\n", tried.c_str());
+    return 1;
+  }
+  const int rc = RunPython(script, {out});
   if (rc != 0) {
-    std::fprintf(stderr, "report: '%s' failed (status %d); the tables above are complete. "
-                 "The report needs python3-matplotlib.\n", cmd.c_str(), rc);
+    std::fprintf(stderr, "report: '%s %s' failed (status %d); the tables above are complete. "
+                 "The report needs python3-matplotlib and python3-scipy.\n", script.c_str(), a.out.c_str(), rc);
     return 1;
   }
   std::printf("report: %sreport.html\n", dir.c_str());
@@ -157,7 +152,7 @@ void Register(CLI::App& app, int* exit_code) {
   cmd->add_option("--out", args->out, "Output directory (created if needed)")->required();
   cmd->add_option("--jobs", args->jobs, "Worker threads (default: one per core)")->check(CLI::Range(0, 256));
   cmd->add_flag("--no-report", args->no_report, "Tables only: skip the HTML report (no matplotlib needed)");
-  cmd->add_option("--report-script", args->report_script, "The report script (default: the source tree's)");
+  cmd->add_option("--report-script", args->report_script, "The report script (default: installed beside holdfast, else the source tree's tools/)");
   cmd->add_flag("--quiet", args->quiet, "No progress on standard error");
   cmd->add_option("--family", args->family, "Run only this instrument family of the batch (standard, rough)");
   cmd->callback([args, exit_code] { *exit_code = RunEvaluate(*args); });

@@ -817,8 +817,35 @@ int RunReplayCommand(const ReplayArgs& a) {
   auto wall0 = std::chrono::steady_clock::now();
   double data0 = kNaN;
   uint64_t ticks = 0;
+  // An injected leak that starts while the decision stage is still warming
+  // up (learning only) is learnt as the segment's normal bias and is then not
+  // detected: say so once per injection (issue 13).
+  std::vector<bool> leak_checked(leaks.size(), false);
+  auto check_warmup = [&](double t) {
+    for (size_t k = 0; k < leaks.size(); ++k) {
+      if (leak_checked[k] || t < leaks[k].start_s) continue;
+      leak_checked[k] = true;
+      for (int si = 0; si < monitor.segment_count(); ++si) {
+        const SegmentSpec& seg = site.segments[si];
+        if (!leaks[k].segment.empty() ? leaks[k].segment != seg.id
+                                      : !(leaks[k].chainage_m >= 0.0 && leaks[k].chainage_m <= seg.length_m()))
+          continue;
+        const SegmentTick& st = monitor.segment(si);
+        if (st.decision_enabled && st.decision.state == DecisionState::kLearning) {
+          std::fprintf(stderr,
+                       "WARNING: --inject-leak %s starts at %s while segment %s is still warming up (the decision "
+                       "stage learns its bias and decides nothing yet; first %.0f s of data without a tuning file): "
+                       "the leak will be learnt as normal and may never be detected. Start it later, or seed the "
+                       "monitor with --tuning from 'holdfast tune' on leak-free data.\n",
+                       leaks[k].text.c_str(), FormatIsoUtc(t, 0).c_str(), seg.id.c_str(),
+                       mopt.decision.warmup_s);
+        }
+      }
+    }
+  };
   options.on_tick = [&](double t) {
     ++ticks;
+    if (!leaks.empty()) check_warmup(t);
     if (pacing) {
       if (!std::isfinite(data0)) {
         data0 = t;
@@ -834,6 +861,11 @@ int RunReplayCommand(const ReplayArgs& a) {
 
   const auto run_start = std::chrono::steady_clock::now();
   const ReplayResult run = RunReplay(&monitor, source, site.tick_s, options);
+  for (size_t k = 0; k < leaks.size(); ++k) {
+    if (!leak_checked[k])
+      std::fprintf(stderr, "WARNING: --inject-leak %s starts after the last tick: nothing was injected\n",
+                   leaks[k].text.c_str());
+  }
   const double wall_s = std::chrono::duration<double>(std::chrono::steady_clock::now() - run_start).count();
   if (run.ticks > 0) progress.Update(source->bytes_read(), run.last_tick_s, true);
   progress.Finish();
@@ -843,7 +875,7 @@ int RunReplayCommand(const ReplayArgs& a) {
 
   std::fprintf(stderr, "%s: %llu rows, %llu bad; %s; readings %s\n", reader.path().c_str(),
                static_cast<unsigned long long>(reader.rows()), static_cast<unsigned long long>(reader.bad_rows()),
-               run.ToString().c_str(), monitor.counters().ToString().c_str());
+               run.ToString().c_str(), ReadingCounts(monitor.counters()).c_str());
   std::fprintf(stderr, "%.2f s wall, %.0f rows/s\n", wall_s,
                wall_s > 0.0 ? static_cast<double>(reader.rows()) / wall_s : 0.0);
   for (const auto& e : reader.errors())

@@ -201,7 +201,7 @@ int RunTune(const TuneArgs& a) {
   const ReplayResult run = RunReplay(&monitor, &source, site.tick_s, ropt);
   std::fprintf(stderr, "%s: %llu rows, %llu bad; %llu ticks; readings %s\n", reader.path().c_str(),
                static_cast<unsigned long long>(reader.rows()), static_cast<unsigned long long>(reader.bad_rows()),
-               static_cast<unsigned long long>(run.ticks), monitor.counters().ToString().c_str());
+               static_cast<unsigned long long>(run.ticks), ReadingCounts(monitor.counters()).c_str());
   for (const auto& e : reader.errors())
     std::fprintf(stderr, "%s:%llu: %s\n", reader.path().c_str(), static_cast<unsigned long long>(e.line),
                  e.message.c_str());

@@ -614,6 +614,63 @@ TEST(SiteConfigErrors, OutOfRangeNumbers) {
   EXPECT_TRUE(HasProblem(With("/site/tick_s", -1), "/site/tick_s", "must be positive"));
 }
 
+// --- Size limits (SiteLimits): each message carries its bound ----------------------
+
+TEST(SiteConfigLimits, ReachLengthTooShortOrTooManyReaches) {
+  // 0.001 m reaches on 10 km would be 10 million reaches (issue 13: it passed
+  // and balance then ran out of memory).
+  EXPECT_TRUE(HasProblem(With("/segments/0/reach_length_m", 0.001), "/segments/0/reach_length_m",
+                         "must be at least 1 m (got 0.001 m)"));
+  // 1 m reaches on 10 km: allowed (10000 reaches).
+  EXPECT_TRUE(With("/segments/0/reach_length_m", 1.0).ok);
+  // 1 m reaches on 1000 km: 1e6 reaches, beyond 20000 per segment.
+  json doc = Base();
+  doc["segments"][0]["reach_length_m"] = 1.0;
+  doc["segments"][0]["sections"][1]["length_m"] = 994000.0;
+  doc["segments"][0]["elevation_profile"][1]["chainage_m"] = 1000000.0;
+  doc["segments"][0]["pressure_points"][0]["chainage_m"] = 1000000.0;
+  EXPECT_TRUE(HasProblem(Compile(doc), "/segments/0/reach_length_m",
+                         "gives 1000000 reaches; at most 20000 per segment (use a reach of at least 50 m)"));
+}
+
+TEST(SiteConfigLimits, SegmentLength) {
+  EXPECT_TRUE(HasProblem(With("/segments/0/sections/0/length_m", 1e300), "/segments/0/sections/0/length_m",
+                         "at most 2000000 m per segment (got 1e+300 m)"));
+  json doc = Base();
+  doc["segments"][0]["sections"][0]["length_m"] = 1.5e6;
+  doc["segments"][0]["sections"][1]["length_m"] = 1.5e6;
+  EXPECT_TRUE(HasProblem(Compile(doc), "/segments/0/sections", "at most 2000000 m per segment"));
+}
+
+TEST(SiteConfigLimits, ReachesOverTheSite) {
+  // 20 segments of 1000 km at 50 m reaches = 20000 each, 400000 in all.
+  json doc = Base();
+  json seg = doc["segments"][0];
+  seg["reach_length_m"] = 50.0;
+  seg["sections"][1]["length_m"] = 994000.0;
+  seg["elevation_profile"][1]["chainage_m"] = 1000000.0;
+  seg["pressure_points"][0]["chainage_m"] = 1000000.0;
+  doc["segments"] = json::array();
+  for (int i = 0; i < 20; ++i) {
+    seg["id"] = "S" + std::to_string(i);
+    doc["segments"].push_back(seg);
+  }
+  EXPECT_TRUE(HasProblem(Compile(doc), "/segments/10/reach_length_m",
+                         "the site now has 220000 reaches; at most 200000 over all segments"));
+}
+
+TEST(SiteConfigLimits, CountsAndTimes) {
+  // The monitor's rupture locator holds 64 meters (monitor.cc).
+  json doc = Base();
+  json meters = json::array();
+  for (int i = 0; i < 65; ++i) meters.push_back(doc["segments"][0]["meters"][1]);
+  doc["segments"][0]["meters"] = meters;
+  EXPECT_TRUE(HasProblem(Compile(doc), "/segments/0/meters", "at most 64 meters per segment (got 65)"));
+  EXPECT_TRUE(HasProblem(With("/site/tick_s", 1e-6), "/site/tick_s", "must be between 0.01 and 3600 s"));
+  EXPECT_TRUE(HasProblem(With("/segments/0/balance/windows_s", json{300, 1e12}), "/segments/0/balance/windows_s/1",
+                         "at most 31622400 s"));
+}
+
 // --- Garbage ---------------------------------------------------------------------
 
 // Every position of the example (containers and leaves), by JSON pointer.

@@ -9,6 +9,7 @@ HOLDFAST_PACKAGES=(
   libeigen3-dev libpaho-mqtt-dev libpaho-mqttpp-dev nlohmann-json3-dev
   libgtest-dev libgmock-dev libbenchmark-dev libcli11-dev
   python3 python3-iapws python3-scipy python3-numpy python3-matplotlib tzdata
+  chromium
   mosquitto mosquitto-clients openssl
   clang libclang-rt-14-dev
 )

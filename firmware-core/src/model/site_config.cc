@@ -335,6 +335,20 @@ class Compiler {
     return Got::kOk;
   }
 
+  // An array of at most `max` elements (SiteLimits); a longer one is
+  // reported with the bound and not compiled further.
+  Got ArrayAtMost(const json& obj, const char* key, const std::string& path, Need need, std::size_t max,
+                  const char* what, const json** out) {
+    const Got g = Array(obj, key, path, need, out);
+    if (g != Got::kOk) return g;
+    if ((*out)->size() > max) {
+      Add(Join(path, key), "at most " + std::to_string(max) + " " + what + " (got " +
+                               std::to_string((*out)->size()) + ")");
+      return Got::kBad;
+    }
+    return Got::kOk;
+  }
+
   // An array element that must be an object.
   bool ElementObject(const json& e, const std::string& path) {
     if (e.is_object()) return true;
@@ -490,6 +504,10 @@ class Compiler {
   void CompileDistrict(const json& d, const std::string& path, DistrictSpec* out);
   void CompileFlowList(const json& d, const char* key, const std::string& path, Need need, std::vector<int>* out);
   void CompileSegment(const json& s, const std::string& path, SegmentSpec* seg);
+  bool CompileReachLength(const json& s, const std::string& path, SegmentSpec* seg);
+  void CheckReaches(const std::string& path, const SegmentSpec& seg);
+  long site_reaches_ = 0;  // over the segments compiled so far (SiteLimits)
+  long site_nodes_ = 0;
   bool CompileSections(const json& s, const std::string& path, SegmentSpec* seg);
   void CompileProfile(const json& s, const std::string& path, bool length_known, SegmentSpec* seg);
   void CompileMeters(const json& s, const std::string& path, bool length_known, SegmentSpec* seg);
@@ -572,7 +590,15 @@ void Compiler::CompileSiteBlock(const json& doc) {
       }
     }
   }
-  Positive(*s, "tick_s", path, Need::kOptional, &site_->tick_s);
+  double tick = site_->tick_s;
+  if (Positive(*s, "tick_s", path, Need::kOptional, &tick) == Got::kOk) {
+    if (tick < SiteLimits::kMinTick_s || tick > SiteLimits::kMaxTick_s) {
+      Add(path + "/tick_s", "must be between " + Num(SiteLimits::kMinTick_s) + " and " + Num(SiteLimits::kMaxTick_s) +
+                                " s (got " + Num(tick) + " s)");
+    } else {
+      site_->tick_s = tick;
+    }
+  }
 }
 
 void Compiler::CompileFluids(const json& doc) {
@@ -690,6 +716,11 @@ void Compiler::CompileFluid(const json& f, const std::string& path, FluidSpec* f
 void Compiler::CompilePoints(const json& doc) {
   const json* pts = nullptr;
   if (Object(doc, "points", "", Need::kRequired, &pts) != Got::kOk) return;
+  if (pts->size() > static_cast<std::size_t>(SiteLimits::kMaxPoints)) {
+    Add("/points", "at most " + std::to_string(SiteLimits::kMaxPoints) + " points per site (got " +
+                       std::to_string(pts->size()) + ")");
+    return;
+  }
   for (auto it = pts->begin(); it != pts->end(); ++it) {
     const std::string path = Join("/points", it.key());
     if (it.key().empty()) {
@@ -804,7 +835,8 @@ void Compiler::CompileSegments(const json& doc) {
   const json* segs = nullptr;
   // A water-utility site may have districts and no pipeline segments.
   const bool has_districts = Member(doc, "districts") != nullptr;
-  if (Array(doc, "segments", "", has_districts ? Need::kOptional : Need::kRequired, &segs) != Got::kOk) return;
+  if (ArrayAtMost(doc, "segments", "", has_districts ? Need::kOptional : Need::kRequired,
+                  SiteLimits::kMaxSegments, "segments per site", &segs) != Got::kOk) return;
   if (segs->empty() && !has_districts) {
     Add("/segments", "must list at least one segment");
     return;
@@ -849,9 +881,10 @@ void Compiler::CompileSegment(const json& s, const std::string& path, SegmentSpe
       seg->fluid = it->second.index;
     }
   }
-  Positive(s, "reach_length_m", path, Need::kOptional, &seg->reach_length_m);
+  const bool reach_ok = CompileReachLength(s, path, seg);
 
   const bool length_known = CompileSections(s, path, seg);
+  if (length_known && reach_ok) CheckReaches(path, *seg);
   CompileProfile(s, path, length_known, seg);
   CompileMeters(s, path, length_known, seg);
   CompileGauges(s, "pressure_points", PointKind::kPressure, true, path, length_known, seg,
@@ -865,10 +898,57 @@ void Compiler::CompileSegment(const json& s, const std::string& path, SegmentSpe
   CompileNominalFlow(s, path, seg);
 }
 
+bool Compiler::CompileReachLength(const json& s, const std::string& path, SegmentSpec* seg) {
+  double v = seg->reach_length_m;
+  const Got g = Positive(s, "reach_length_m", path, Need::kOptional, &v);
+  if (g == Got::kBad) return false;
+  if (g == Got::kOk && v < SiteLimits::kMinReachLength_m) {
+    Add(path + "/reach_length_m", "must be at least " + Num(SiteLimits::kMinReachLength_m) + " m (got " + Num(v) +
+                                      " m)");
+    return false;
+  }
+  seg->reach_length_m = v;
+  return true;
+}
+
+// The reach grid the inventory will build (inventory.cc: ceil(length /
+// reach) reaches per section), bounded per segment and per site.
+void Compiler::CheckReaches(const std::string& path, const SegmentSpec& seg) {
+  const double length = seg.length_m();
+  if (!(length <= SiteLimits::kMaxSegmentLength_m)) {
+    Add(path + "/sections", "the segment is " + Num(length) + " m long; at most " +
+                                Num(SiteLimits::kMaxSegmentLength_m) + " m per segment (split it)");
+    return;
+  }
+  double reaches = 0.0;
+  for (const PipeSection& sec : seg.sections) {
+    reaches += std::max(1.0, std::ceil(sec.length_m / seg.reach_length_m - 1e-9));
+  }
+  if (reaches > static_cast<double>(SiteLimits::kMaxReachesPerSegment)) {
+    Add(path + "/reach_length_m", "a reach length of " + Num(seg.reach_length_m) + " m gives " + Num(reaches) +
+                                      " reaches; at most " + std::to_string(SiteLimits::kMaxReachesPerSegment) +
+                                      " per segment (use a reach of at least " +
+                                      Num(std::ceil(length / SiteLimits::kMaxReachesPerSegment)) + " m)");
+    return;
+  }
+  const long before = site_reaches_;
+  site_reaches_ += static_cast<long>(reaches);
+  site_nodes_ += static_cast<long>(reaches) + static_cast<long>(seg.sections.size());
+  if (before <= SiteLimits::kMaxReachesPerSite && site_reaches_ > SiteLimits::kMaxReachesPerSite) {
+    Add(path + "/reach_length_m", "the site now has " + std::to_string(site_reaches_) + " reaches; at most " +
+                                      std::to_string(SiteLimits::kMaxReachesPerSite) +
+                                      " over all segments (use longer reaches)");
+  } else if (site_reaches_ <= SiteLimits::kMaxReachesPerSite && site_nodes_ > SiteLimits::kMaxNodesPerSite) {
+    Add(path + "/sections", "the site now has " + std::to_string(site_nodes_) + " reach end points; at most " +
+                                std::to_string(SiteLimits::kMaxNodesPerSite) + " over all segments");
+  }
+}
+
 // Returns true when every section length is known, so the segment length is.
 bool Compiler::CompileSections(const json& s, const std::string& path, SegmentSpec* seg) {
   const json* secs = nullptr;
-  if (Array(s, "sections", path, Need::kRequired, &secs) != Got::kOk) return false;
+  if (ArrayAtMost(s, "sections", path, Need::kRequired, SiteLimits::kMaxSectionsPerSegment,
+                  "pipe sections per segment", &secs) != Got::kOk) return false;
   const std::string spath = path + "/sections";
   if (secs->empty()) {
     Add(spath, "must list at least one pipe section");
@@ -886,7 +966,13 @@ bool Compiler::CompileSections(const json& s, const std::string& path, SegmentSp
               {"length_m", "outside_diameter_mm", "wall_thickness_mm", "youngs_modulus_gpa",
                "poisson_ratio", "restraint", "roughness_mm", "wall_thermal_expansion_per_k"});
     PipeSection sec;
-    if (Positive(e, "length_m", p, Need::kRequired, &sec.length_m) != Got::kOk) all_lengths = false;
+    if (Positive(e, "length_m", p, Need::kRequired, &sec.length_m) != Got::kOk) {
+      all_lengths = false;
+    } else if (sec.length_m > SiteLimits::kMaxSegmentLength_m) {
+      Add(p + "/length_m", "at most " + Num(SiteLimits::kMaxSegmentLength_m) + " m per segment (got " +
+                               Num(sec.length_m) + " m)");
+      all_lengths = false;
+    }
     double od_mm = 0.0;
     double wt_mm = 0.0;
     const bool od_ok = Positive(e, "outside_diameter_mm", p, Need::kRequired, &od_mm) == Got::kOk;
@@ -929,7 +1015,8 @@ bool Compiler::CompileSections(const json& s, const std::string& path, SegmentSp
 void Compiler::CompileProfile(const json& s, const std::string& path, bool length_known,
                               SegmentSpec* seg) {
   const json* prof = nullptr;
-  if (Array(s, "elevation_profile", path, Need::kRequired, &prof) != Got::kOk) return;
+  if (ArrayAtMost(s, "elevation_profile", path, Need::kRequired, SiteLimits::kMaxProfilePoints,
+                  "elevation profile points per segment", &prof) != Got::kOk) return;
   const std::string ppath = path + "/elevation_profile";
   if (prof->empty()) {
     Add(ppath, "must list at least one point {\"chainage_m\", \"elevation_m\"}");
@@ -967,7 +1054,8 @@ void Compiler::CompileProfile(const json& s, const std::string& path, bool lengt
 void Compiler::CompileMeters(const json& s, const std::string& path, bool length_known,
                              SegmentSpec* seg) {
   const json* meters = nullptr;
-  if (Array(s, "meters", path, Need::kRequired, &meters) != Got::kOk) return;
+  if (ArrayAtMost(s, "meters", path, Need::kRequired, SiteLimits::kMaxMetersPerSegment, "meters per segment",
+                  &meters) != Got::kOk) return;
   const std::string mpath = path + "/meters";
   const double length = seg->length_m();
   bool have_in = false;
@@ -1043,7 +1131,9 @@ void Compiler::CompileGauges(const json& s, const char* key, PointKind kind,
                              bool elevation_required, const std::string& path, bool length_known,
                              SegmentSpec* seg, std::vector<GaugeSpec>* out) {
   const json* list = nullptr;
-  if (Array(s, key, path, Need::kRequired, &list) != Got::kOk) return;
+  if (ArrayAtMost(s, key, path, Need::kRequired, SiteLimits::kMaxGaugesPerSegment,
+                  kind == PointKind::kPressure ? "pressure points per segment" : "temperature points per segment",
+                  &list) != Got::kOk) return;
   const std::string gpath = path + "/" + key;
   if (list->empty()) {
     Add(gpath, std::string("must list at least one ") + PointKindName(kind) +
@@ -1112,7 +1202,8 @@ void Compiler::CompileStrapping(const json& e, const std::string& p, std::vector
       units_ok = false;
     }
     const json* rows = nullptr;
-    if (Array(*table, "rows", sp, Need::kRequired, &rows) == Got::kOk) {
+    if (ArrayAtMost(*table, "rows", sp, Need::kRequired, SiteLimits::kMaxStrappingRows,
+                    "rows per strapping table", &rows) == Got::kOk) {
       const std::string rp = sp + "/rows";
       if (rows->size() < 2) {
         Add(rp, "a strapping table needs at least two rows [level, volume] (got " +
@@ -1162,7 +1253,8 @@ void Compiler::CompileStrapping(const json& e, const std::string& p, std::vector
 
 void Compiler::CompileTanks(const json& s, const std::string& path, SegmentSpec* seg) {
   const json* tanks = nullptr;
-  if (Array(s, "tanks", path, Need::kOptional, &tanks) != Got::kOk) return;
+  if (ArrayAtMost(s, "tanks", path, Need::kOptional, SiteLimits::kMaxTanksPerSegment, "tanks per segment",
+                  &tanks) != Got::kOk) return;
   const std::string tpath = path + "/tanks";
   for (std::size_t i = 0; i < tanks->size(); ++i) {
     const std::string p = Join(tpath, i);
@@ -1186,7 +1278,8 @@ void Compiler::CompileTanks(const json& s, const std::string& path, SegmentSpec*
 void Compiler::CompileLandmarks(const json& s, const std::string& path, bool length_known,
                                 SegmentSpec* seg) {
   const json* marks = nullptr;
-  if (Array(s, "landmarks", path, Need::kOptional, &marks) != Got::kOk) return;
+  if (ArrayAtMost(s, "landmarks", path, Need::kOptional, SiteLimits::kMaxLandmarks, "landmarks per segment",
+                  &marks) != Got::kOk) return;
   const std::string lpath = path + "/landmarks";
   const double length = seg->length_m();
   for (std::size_t i = 0; i < marks->size(); ++i) {
@@ -1274,6 +1367,10 @@ void Compiler::CompileBalance(const json& s, const std::string& path, SegmentSpe
       const double v = e.get<double>();
       if (!(v > 0.0)) {
         Add(ep, "a window must be positive (got " + Num(v) + " s)");
+        continue;
+      }
+      if (v > SiteLimits::kMaxWindow_s) {
+        Add(ep, "a window must be at most " + Num(SiteLimits::kMaxWindow_s) + " s (one year; got " + Num(v) + " s)");
         continue;
       }
       auto [it, fresh] = seen.emplace(v, i);
