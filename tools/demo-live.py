@@ -17,10 +17,10 @@ ap.add_argument("--pace", type=float, default=240.0, help="data seconds per wall
 a = ap.parse_args()
 shutil.rmtree(a.out, ignore_errors=True)
 os.makedirs(a.out)
-site = os.path.join(ROOT, "config", "demo", "kestrel-site.json")
-scenario = os.path.join(ROOT, "config", "demo", "kestrel-scenario.json")
+site = os.path.join(ROOT, "config", "demo", "quillfen-site.json")
+scenario = os.path.join(ROOT, "config", "demo", "quillfen-scenario.json")
 
-print("== holdfast sim: 6 h of the Kestrel Ridge line, a leak at km 31 from 4 h", flush=True)
+print("== holdfast sim: 6 h of the Quillfen Spur line, a leak at km 31 from 4 h", flush=True)
 subprocess.run([a.holdfast, "sim", "--config", site, "--scenario", scenario, "--out", os.path.join(a.out, "sim")],
                check=True, stdout=subprocess.DEVNULL)
 truth = json.load(open(os.path.join(a.out, "sim", "truth.json")))
@@ -69,7 +69,7 @@ with open(lines) as f, open(watch_log, "w") as wl:
         pub.stdin.write(line)
         if k % 1800 == 0:
             pub.stdin.flush()
-            st = broker.get_retained("watcher", PREFIX + "/status/KR-1", timeout=1)
+            st = broker.get_retained("watcher", PREFIX + "/status/QS-1", timeout=1)
             if st and st.get("windows"):
                 w = {x["window_s"]: x for x in st["windows"]}
                 h = w.get(3600, {})
@@ -81,9 +81,9 @@ with open(lines) as f, open(watch_log, "w") as wl:
 pub.stdin.close()
 pub.wait(timeout=30)
 # Acknowledge the leak alarm as an operator would, and show the answer.
-r = subprocess.run([a.holdfast, "alarms", "ack", "--segment", "KR-1", "--alarm", "leak", "--reason", "demo"] + cli,
+r = subprocess.run([a.holdfast, "alarms", "ack", "--segment", "QS-1", "--alarm", "leak", "--reason", "demo"] + cli,
                    capture_output=True, text=True, timeout=60)
-print("== holdfast alarms ack --segment KR-1 --alarm leak:  " + (r.stdout.strip() or r.stderr.strip()), flush=True)
+print("== holdfast alarms ack --segment QS-1 --alarm leak:  " + (r.stdout.strip() or r.stderr.strip()), flush=True)
 deadline = time.time() + 5
 while time.time() < deadline:
     rr, _, _ = select.select([watch.stdout], [], [], 0.5)

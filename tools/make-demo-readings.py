@@ -1,11 +1,11 @@
 #!/usr/bin/python3
-"""Writes the demo readings for the fictional Kestrel Ridge crude line.
+"""Writes the demo readings for the fictional Quillfen Spur crude line.
 
-    /usr/bin/python3 tools/make-demo-readings.py [--site config/demo/kestrel-site.json]
-        [--out config/demo/kestrel-readings.csv] [--truth config/demo/kestrel-truth.json]
+    /usr/bin/python3 tools/make-demo-readings.py [--site config/demo/quillfen-site.json]
+        [--out config/demo/quillfen-readings.csv] [--truth config/demo/quillfen-truth.json]
 
 Four hours of SCADA-style readings (time,point,value,quality) for the site in
-config/demo/kestrel-site.json, and the ground truth behind them. Standard
+config/demo/quillfen-site.json, and the ground truth behind them. Standard
 library only; deterministic (fixed seed): the same command writes the same
 bytes. All data are invented.
 
@@ -315,9 +315,9 @@ def main():
     here = os.path.dirname(os.path.abspath(__file__))
     root = os.path.dirname(here)
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    ap.add_argument("--site", default=os.path.join(root, "config/demo/kestrel-site.json"))
-    ap.add_argument("--out", default=os.path.join(root, "config/demo/kestrel-readings.csv"))
-    ap.add_argument("--truth", default=os.path.join(root, "config/demo/kestrel-truth.json"))
+    ap.add_argument("--site", default=os.path.join(root, "config/demo/quillfen-site.json"))
+    ap.add_argument("--out", default=os.path.join(root, "config/demo/quillfen-readings.csv"))
+    ap.add_argument("--truth", default=os.path.join(root, "config/demo/quillfen-truth.json"))
     args = ap.parse_args()
 
     with open(args.site) as f:
@@ -576,7 +576,7 @@ def main():
         return hits
 
     truth = {
-        "description": "Ground truth of config/demo/kestrel-readings.csv (fictional Kestrel Ridge crude line; "
+        "description": "Ground truth of config/demo/quillfen-readings.csv (fictional Quillfen Spur crude line; "
                        "invented data, written by tools/make-demo-readings.py)",
         "generator": {"script": "tools/make-demo-readings.py", "seed": SEED, "step_s": STEP_S},
         "start": iso(0),

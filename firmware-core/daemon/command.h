@@ -1,6 +1,6 @@
 // Alarm commands as they arrive on P/commands/<user> (config/DAEMON.md):
 //
-//   {"id": "c-17", "segment": "KR-1", "alarm": "leak", "command": "shelve",
+//   {"id": "c-17", "segment": "QS-1", "alarm": "leak", "command": "shelve",
 //    "duration_s": 3600, "user": "alice", "reason": "pigging run"}
 //
 //   id          required, 1-64 characters, echoed in the reply

@@ -1,5 +1,5 @@
 // The daemon's topic tree, version 1 (config/DAEMON.md). Every topic starts
-// with the configured prefix P (e.g. "holdfast/v1/kestrel"):
+// with the configured prefix P (e.g. "holdfast/v1/quillfen"):
 //
 //   P/readings/<point>    in   one reading, or an array of readings, of one point
 //   P/readings            in   a batch: array of readings, each naming its point

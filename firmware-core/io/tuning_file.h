@@ -10,7 +10,7 @@
 //     "site": "...", "data": "...", "until": null,
 //     "false_alarm_interval_s": 7776000, "detectors_in_bank": 5, "inventory_filter_s": 300,
 //     "segments": {
-//       "KR-1": {"block_s": 60, "bias_kg_s": ..., "sigma_kg_s": ..., "phi": ..., ...}
+//       "QS-1": {"block_s": 60, "bias_kg_s": ..., "sigma_kg_s": ..., "phi": ..., ...}
 //     }
 //   }
 #pragma once
@@ -92,7 +92,7 @@ struct TuningFile {
 // Reads and checks a tuning file against `site`. On failure returns false
 // and sets *why to every problem found, one per line, each naming the file
 // and the JSON pointer:
-//   "tuning.json:/segments/KR-9: no segment \"KR-9\" in the site"
+//   "tuning.json:/segments/QS-9: no segment \"QS-9\" in the site"
 //   "tuning.json:/format: expected \"holdfast-tuning/1\" (got \"holdfast-tuning/2\")"
 //   "tuning.json:14:3: parse error: ..."
 // Unknown keys are problems (they are typos in a hand-edited file). Never throws.

@@ -558,7 +558,7 @@ TEST(ReadingsCsvReader, CanBeReopened) {
 // The demo readings (tools/make-demo-readings.py) carry deliberate blemishes;
 // the reader and the aligner must count them and carry on.
 TEST(DemoReadings, BlemishesAreCounted) {
-  const std::string path = std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/kestrel-readings.csv";
+  const std::string path = std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/quillfen-readings.csv";
   if (!std::filesystem::exists(path)) GTEST_SKIP() << "no " << path;
   Site site;
   for (const char* id : {"CF-FT-101", "CF-PT-101", "CF-TT-101", "TJ-FT-201", "TJ-PT-201", "MB-PT-301",

@@ -125,23 +125,23 @@ try:
         expected = replay_first_event()
         F.check(leak_raises(evs)[0] == expected, "the leak event is the one `holdfast replay` raises: %s" %
                 json.dumps(leak_raises(evs)[0]))
-        st = broker.get_retained("watcher", PREFIX + "/alarms/KR-1")
+        st = broker.get_retained("watcher", PREFIX + "/alarms/QS-1")
         F.check(st and st["alarms"]["leak"]["state"] == "unack_active", "retained alarm state: leak unack_active")
-        status = broker.get_retained("watcher", PREFIX + "/status/KR-1")
+        status = broker.get_retained("watcher", PREFIX + "/status/QS-1")
         F.check(status and len(status.get("windows", [])) == 3 and "data_quality" in status,
                 "retained segment status with windows and data quality")
         # Unauthorised: victor has no write right on commands (the broker drops it); alice may not
         # command under bob's name; mallory may publish but is not a daemon operator.
-        command(broker, "victor", {"id": "v-1", "segment": "KR-1", "alarm": "leak", "command": "acknowledge"})
-        command(broker, "alice", {"id": "a-0", "segment": "KR-1", "alarm": "leak", "command": "acknowledge"},
+        command(broker, "victor", {"id": "v-1", "segment": "QS-1", "alarm": "leak", "command": "acknowledge"})
+        command(broker, "alice", {"id": "a-0", "segment": "QS-1", "alarm": "leak", "command": "acknowledge"},
                 reply_user="bob")
-        command(broker, "mallory", {"id": "m-1", "segment": "KR-1", "alarm": "leak", "command": "acknowledge"})
+        command(broker, "mallory", {"id": "m-1", "segment": "QS-1", "alarm": "leak", "command": "acknowledge"})
         wait_for(lambda: any(t == PREFIX + "/replies/mallory" for t, p in watcher.messages()), TIMEOUT,
                  "the reply to mallory")
         rep = [p for t, p in watcher.messages() if t == PREFIX + "/replies/mallory"][0]
         F.check(rep["ok"] is False and rep["result"] == "rejected_not_authorised",
                 "mallory's command rejected: " + json.dumps(rep))
-        st = broker.get_retained("watcher", PREFIX + "/alarms/KR-1")
+        st = broker.get_retained("watcher", PREFIX + "/alarms/QS-1")
         F.check(st["alarms"]["leak"]["state"] == "unack_active", "no unauthorised command changed the alarm")
         # Authorised: alice acknowledges with `holdfast alarms ack`, while `holdfast alarms watch` follows.
         cred = os.path.join(work, "alice.cred")
@@ -156,7 +156,7 @@ try:
                           stdout=watch_out, stderr=subprocess.STDOUT)
         wait_for(lambda: "watching" in open(os.path.join(work, "cli-watch.txt")).read(), TIMEOUT,
                  "holdfast alarms watch to subscribe")
-        r = subprocess.run([holdfast, "alarms", "ack", "--segment", "KR-1", "--alarm", "leak", "--reason", "seen"] + cli,
+        r = subprocess.run([holdfast, "alarms", "ack", "--segment", "QS-1", "--alarm", "leak", "--reason", "seen"] + cli,
                            capture_output=True, text=True, timeout=TIMEOUT)
         F.check(r.returncode == 0 and "done: applied, state ack_active" in r.stdout,
                 "holdfast alarms ack: %d %s %s" % (r.returncode, r.stdout.strip(), r.stderr.strip()))
@@ -164,7 +164,7 @@ try:
         watched = open(os.path.join(work, "cli-watch.txt")).read()
         F.check(cli_watch.returncode == 0 and "acknowledged" in watched and "by alice" in watched,
                 "holdfast alarms watch shows the acknowledgement: " + watched.strip())
-        r = subprocess.run([holdfast, "alarms", "shelve", "--segment", "KR-1", "--alarm", "rupture", "--for", "600"]
+        r = subprocess.run([holdfast, "alarms", "shelve", "--segment", "QS-1", "--alarm", "rupture", "--for", "600"]
                            + cli, capture_output=True, text=True, timeout=TIMEOUT)
         F.check(r.returncode == 0 and "state shelved" in r.stdout, "holdfast alarms shelve: " + r.stdout.strip())
         wait_for(lambda: [e for e in events_of(watcher) if e["cause"] == "acknowledged"], TIMEOUT, "the ack event")
@@ -219,7 +219,7 @@ try:
         batches(readings, rest, start="2026-03-14T08:16:30")
         broker.pub_lines("feeder", PREFIX + "/readings", rest)
         wait_data_time(broker, "2026-03-14T09:59:5")
-        command(broker, "alice", {"id": "a-1", "segment": "KR-1", "alarm": "leak", "command": "acknowledge"})
+        command(broker, "alice", {"id": "a-1", "segment": "QS-1", "alarm": "leak", "command": "acknowledge"})
         wait_for(lambda: [e for e in events_of(watcher) if e["cause"] == "acknowledged"], TIMEOUT, "the ack event")
         evs = check_dedup(events_of(watcher), "events across the broker restart")
         F.check(len(leak_raises(evs)) == 1 and leak_raises(evs)[0]["time"] == "2026-03-14T08:15:06.000Z",
@@ -252,7 +252,7 @@ try:
         daemon.kill9()
         restart(daemon)
         wait_for(lambda: daemon.log_text().count("resumed from") >= 2, TIMEOUT, "the second resume")
-        command(broker, "alice", {"id": "a-1", "segment": "KR-1", "alarm": "leak", "command": "acknowledge"})
+        command(broker, "alice", {"id": "a-1", "segment": "QS-1", "alarm": "leak", "command": "acknowledge"})
         wait_for(lambda: [e for e in events_of(watcher) if e["cause"] == "acknowledged"], TIMEOUT, "the ack event")
         evs = check_dedup(events_of(watcher), "events across two kill -9")
         early = [e for e in evs if e["time"] < LEAK_START]
@@ -262,7 +262,7 @@ try:
                 [e["time"] for e in raises])
         ack = [e for e in evs if e["cause"] == "acknowledged"][0]
         F.check(ack["seq"] == raises[0]["seq"] + 1, "the ack continues the sequence after the restart")
-        st = broker.get_retained("watcher", PREFIX + "/alarms/KR-1")
+        st = broker.get_retained("watcher", PREFIX + "/alarms/QS-1")
         F.check(st["alarms"]["leak"]["state"] == "ack_active", "restored state then acknowledged: ack_active")
 
     elif scenario == "malformed":
@@ -285,8 +285,8 @@ try:
             ("readings/CF-FT-101", "x" * 200000),
             ("readings/CF-FT-101", "[" + ",".join(['{"time":1773468000,"value":1}'] * 1100) + "]"),
             ("commands/alice", "not json"),
-            ("commands/alice", '{"id": "x", "segment": "KR-9", "alarm": "leak", "command": "acknowledge"}'),
-            ("commands/alice", '{"id": "x", "segment": "KR-1", "alarm": "leak", "command": "suppress"}'),
+            ("commands/alice", '{"id": "x", "segment": "QS-9", "alarm": "leak", "command": "acknowledge"}'),
+            ("commands/alice", '{"id": "x", "segment": "QS-1", "alarm": "leak", "command": "suppress"}'),
         ]
         users = {"readings": "feeder", "commands": "alice"}
         for i in range(3):
@@ -344,7 +344,7 @@ try:
         F.check(st["state"] == "online" and st["feed"]["state"] == "silent" and
                 st.get("detail", "").startswith("feed silent since "), "heartbeat: %s, %s" % (st["feed"], st.get("detail")))
         seg = wait_for(lambda: (lambda g: g if g and g["feed"]["state"] == "silent" else None)(
-            broker.get_retained("watcher", PREFIX + "/status/KR-1")), 10, "the segment status to say silent", 0.2)
+            broker.get_retained("watcher", PREFIX + "/status/QS-1")), 10, "the segment status to say silent", 0.2)
         F.check(seg["status"] == "unavailable" and seg["feed"]["state"] == "silent",
                 "segment status unavailable, feed silent: %s %s" % (seg["status"], seg["feed"]))
         F.check("feed silent since" in daemon.log_text(), "the log says the feed is silent")
@@ -367,7 +367,7 @@ try:
         wait_for(lambda: leak_raises(events_of(watcher)), TIMEOUT, "the leak alarm event")
         for i, (alarm, cmd, extra) in enumerate([("leak", "acknowledge", {}), ("rupture", "shelve", {"duration_s": 600}),
                                                  ("rupture", "unshelve", {})]):
-            command(broker, "bob", dict({"id": "b-%d" % i, "segment": "KR-1", "alarm": alarm, "command": cmd}, **extra))
+            command(broker, "bob", dict({"id": "b-%d" % i, "segment": "QS-1", "alarm": alarm, "command": cmd}, **extra))
         wait_for(lambda: len(check_dedup(events_of(watcher), "live events")) >= 4, TIMEOUT, "four events live")
         n_events = len(check_dedup(events_of(watcher), "live events"))
         jdir = os.path.join(daemon.dir, "journal")
@@ -437,15 +437,15 @@ try:
             return [p for t, p in watcher.messages() if t.startswith(PREFIX + "/replies/") and p.get("id") == cid]
 
         def rupture_state():
-            return broker.get_retained("watcher", PREFIX + "/alarms/KR-1")["alarms"]["rupture"]["state"]
+            return broker.get_retained("watcher", PREFIX + "/alarms/QS-1")["alarms"]["rupture"]["state"]
         # A retained shelve: applied once when it arrives live, never again when the broker delivers it
         # from its retained store (at every restart of the daemon).
-        ret = json.dumps({"id": "ret-1", "segment": "KR-1", "alarm": "rupture", "command": "shelve", "duration_s": 3600})
+        ret = json.dumps({"id": "ret-1", "segment": "QS-1", "alarm": "rupture", "command": "shelve", "duration_s": 3600})
         subprocess.run(["mosquitto_pub"] + broker.client_args("alice") +
                        ["-q", "1", "-r", "-t", PREFIX + "/commands/alice", "-m", ret], timeout=60, check=True)
         wait_for(lambda: replies("ret-1"), TIMEOUT, "the reply to the live shelve")
         F.check(rupture_state() == "shelved", "the live command applied: rupture shelved")
-        command(broker, "alice", {"id": "u-1", "segment": "KR-1", "alarm": "rupture", "command": "unshelve"})
+        command(broker, "alice", {"id": "u-1", "segment": "QS-1", "alarm": "rupture", "command": "unshelve"})
         wait_for(lambda: replies("u-1"), TIMEOUT, "the reply to the unshelve")
         F.check(rupture_state() == "normal", "unshelved")
         for k in range(2):
@@ -456,7 +456,7 @@ try:
             time.sleep(0.5)
             F.check(rupture_state() == "normal", "restart %d: the retained shelve not applied again" % (k + 1))
         # The same id twice: applied once.
-        c7 = {"id": "c-7", "segment": "KR-1", "alarm": "rupture", "command": "shelve", "duration_s": 60}
+        c7 = {"id": "c-7", "segment": "QS-1", "alarm": "rupture", "command": "shelve", "duration_s": 60}
         command(broker, "alice", c7)
         command(broker, "alice", c7)
         wait_for(lambda: len(replies("c-7")) >= 2, TIMEOUT, "two replies to c-7")
@@ -473,10 +473,10 @@ try:
         flood = os.path.join(work, "flood.txt")
         with open(flood, "w") as f:
             for i in range(2000):
-                f.write(json.dumps({"id": "m-%d" % i, "segment": "KR-1", "alarm": "leak", "command": "acknowledge"}) + "\n")
+                f.write(json.dumps({"id": "m-%d" % i, "segment": "QS-1", "alarm": "leak", "command": "acknowledge"}) + "\n")
         broker.pub_lines("mallory", PREFIX + "/commands/mallory", flood)
         t0 = time.time()
-        command(broker, "bob", {"id": "b-1", "segment": "KR-1", "alarm": "rupture", "command": "unshelve"})
+        command(broker, "bob", {"id": "b-1", "segment": "QS-1", "alarm": "rupture", "command": "unshelve"})
         wait_for(lambda: replies("b-1"), TIMEOUT, "bob's reply after the flood")
         print("FIGURE commands: operator reply %.2f s after a 2000-command flood" % (time.time() - t0))
         st = wait_for(lambda: (lambda s: s if s and s.get("commands_rate_limited", 0) > 0 else None)(

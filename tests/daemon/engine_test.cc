@@ -18,8 +18,8 @@
 namespace holdfast::daemon {
 namespace {
 
-const std::string kSite = std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/kestrel-site.json";
-const std::string kReadings = std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/kestrel-readings.csv";
+const std::string kSite = std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/quillfen-site.json";
+const std::string kReadings = std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/quillfen-readings.csv";
 constexpr double kAfterLeakAlarm_s = 1773476400.0 + 1200.0;  // 2026-03-14T08:20:00Z
 
 class FakeLink final : public Link {
@@ -43,7 +43,7 @@ DaemonOptions Options(const std::string& dir) {
   DaemonOptions o;
   o.site_file = kSite;
   o.broker_uri = "tcp://127.0.0.1:1883";
-  o.topic_prefix = "holdfast/v1/kestrel";
+  o.topic_prefix = "holdfast/v1/quillfen";
   o.journal_dir = dir + "/journal";
   o.state_dir = dir + "/state";
   o.operators = {"alice"};
@@ -82,7 +82,7 @@ TEST(Engine, JournalFirstPublishOnConnectRetireOnAck) {
     EXPECT_TRUE(link.Events().empty());
     ASSERT_EQ(e.journal().pending_count(), 1u);
     EXPECT_EQ(e.journal().pending(0).seq, 1u);
-    EXPECT_EQ(e.journal().pending(0).topic, "holdfast/v1/kestrel/events/KR-1");
+    EXPECT_EQ(e.journal().pending(0).topic, "holdfast/v1/quillfen/events/QS-1");
     // Connect, but the broker never acknowledges (it dies): the record stays.
     e.OnConnected(1.0);
     ASSERT_EQ(link.Events().size(), 1u);
@@ -135,18 +135,18 @@ TEST(Engine, CommandsAreCheckedAppliedAndAnswered) {
   e.SetLink(&link);
   e.OnConnected(1.0);
   // Before any data: refused, with a reply.
-  e.OnMessage("holdfast/v1/kestrel/commands/alice",
-              R"({"id":"c-0","segment":"KR-1","alarm":"leak","command":"acknowledge"})", 1.0);
+  e.OnMessage("holdfast/v1/quillfen/commands/alice",
+              R"({"id":"c-0","segment":"QS-1","alarm":"leak","command":"acknowledge"})", 1.0);
   ASSERT_FALSE(link.sent.empty());
-  EXPECT_EQ(link.sent.back().topic, "holdfast/v1/kestrel/replies/alice");
+  EXPECT_EQ(link.sent.back().topic, "holdfast/v1/quillfen/replies/alice");
   EXPECT_NE(link.sent.back().payload.find("\"result\":\"rejected_not_ready\""), std::string::npos);
   FeedUntil(&e, kAfterLeakAlarm_s);
-  e.OnMessage("holdfast/v1/kestrel/commands/mallory",
-              R"({"id":"m-1","segment":"KR-1","alarm":"leak","command":"acknowledge"})", 2.0);
+  e.OnMessage("holdfast/v1/quillfen/commands/mallory",
+              R"({"id":"m-1","segment":"QS-1","alarm":"leak","command":"acknowledge"})", 2.0);
   EXPECT_NE(link.sent.back().payload.find("rejected_not_authorised"), std::string::npos);
   EXPECT_EQ(e.monitor().alarm(0, AlarmType::kLeak).state(), AlarmState::kUnackActive);
-  e.OnMessage("holdfast/v1/kestrel/commands/alice",
-              R"({"id":"c-1","segment":"KR-1","alarm":"leak","command":"shelve","duration_s":600})", 3.0);
+  e.OnMessage("holdfast/v1/quillfen/commands/alice",
+              R"({"id":"c-1","segment":"QS-1","alarm":"leak","command":"shelve","duration_s":600})", 3.0);
   EXPECT_EQ(e.monitor().alarm(0, AlarmType::kLeak).state(), AlarmState::kShelved);
   EXPECT_NE(link.sent.back().payload.find("\"ok\":true"), std::string::npos) << link.sent.back().payload;
   const auto events = link.Events();
@@ -283,8 +283,8 @@ TEST(Engine, FutureStampedReadingsChangeNothing) {
 // at its rate limit without delaying another user's command.
 TEST(Engine, CommandsApplyExactlyOnce) {
   const std::string dir = TempDir("once");
-  const std::string shelve = R"({"id":"c-1","segment":"KR-1","alarm":"rupture","command":"shelve","duration_s":600})";
-  const std::string topic = "holdfast/v1/kestrel/commands/alice";
+  const std::string shelve = R"({"id":"c-1","segment":"QS-1","alarm":"rupture","command":"shelve","duration_s":600})";
+  const std::string topic = "holdfast/v1/quillfen/commands/alice";
   {
     FakeLink link;
     Engine e;
@@ -298,8 +298,8 @@ TEST(Engine, CommandsApplyExactlyOnce) {
     EXPECT_EQ(e.counters().commands_retained_ignored, 1u);
     e.OnMessage(topic, shelve, 101.0);
     EXPECT_EQ(e.monitor().alarm(0, AlarmType::kRupture).state(), AlarmState::kShelved);
-    e.OnMessage("holdfast/v1/kestrel/commands/alice",
-                R"({"id":"c-2","segment":"KR-1","alarm":"rupture","command":"unshelve"})", 102.0);
+    e.OnMessage("holdfast/v1/quillfen/commands/alice",
+                R"({"id":"c-2","segment":"QS-1","alarm":"rupture","command":"unshelve"})", 102.0);
     EXPECT_EQ(e.monitor().alarm(0, AlarmType::kRupture).state(), AlarmState::kNormal);
     e.OnMessage(topic, shelve, 103.0);  // c-1 again: not applied
     EXPECT_EQ(e.monitor().alarm(0, AlarmType::kRupture).state(), AlarmState::kNormal);
@@ -309,11 +309,11 @@ TEST(Engine, CommandsApplyExactlyOnce) {
     // A flood of 2000 from mallory within a second: the burst gets through
     // (and is refused: not an operator); alice's next command still applies.
     for (int i = 0; i < 2000; ++i)
-      e.OnMessage("holdfast/v1/kestrel/commands/mallory",
-                  R"({"id":"m-)" + std::to_string(i) + R"(","segment":"KR-1","alarm":"leak","command":"acknowledge"})",
+      e.OnMessage("holdfast/v1/quillfen/commands/mallory",
+                  R"({"id":"m-)" + std::to_string(i) + R"(","segment":"QS-1","alarm":"leak","command":"acknowledge"})",
                   104.0 + i * 1e-4);
     EXPECT_EQ(e.counters().commands_rate_limited, 2000u - 10u);  // command_burst 10
-    e.OnMessage(topic, R"({"id":"c-3","segment":"KR-1","alarm":"rupture","command":"shelve","duration_s":60})", 104.5);
+    e.OnMessage(topic, R"({"id":"c-3","segment":"QS-1","alarm":"rupture","command":"shelve","duration_s":60})", 104.5);
     EXPECT_EQ(e.monitor().alarm(0, AlarmType::kRupture).state(), AlarmState::kShelved);
     const std::string audit = [&] {
       std::ifstream f(dir + "/state/audit.jsonl");
@@ -322,7 +322,7 @@ TEST(Engine, CommandsApplyExactlyOnce) {
     EXPECT_NE(audit.find("\"result\":\"ignored_retained\""), std::string::npos);
     EXPECT_NE(audit.find("\"result\":\"ignored_duplicate\""), std::string::npos);
     EXPECT_LT(std::count(audit.begin(), audit.end(), '\n'), 20);  // the flood is not audited line by line
-    e.OnMessage(topic, R"({"id":"c-4","segment":"KR-1","alarm":"rupture","command":"unshelve"})", 105.0);
+    e.OnMessage(topic, R"({"id":"c-4","segment":"QS-1","alarm":"rupture","command":"unshelve"})", 105.0);
     ASSERT_TRUE(e.Checkpoint(&why)) << why;
   }
   // A restart: c-1 re-sent (e.g. redelivered) is still a duplicate.
@@ -349,7 +349,7 @@ TEST(Engine, AuditLogRotates) {
   std::string why;
   ASSERT_TRUE(e.Init(o, nullptr, &why)) << why;
   for (int i = 0; i < 200; ++i)
-    e.OnMessage("holdfast/v1/kestrel/commands/alice", R"({"id":"x-)" + std::to_string(i) + R"(","segment":"KR-1"})",
+    e.OnMessage("holdfast/v1/quillfen/commands/alice", R"({"id":"x-)" + std::to_string(i) + R"(","segment":"QS-1"})",
                 1.0 + i);
   const std::string base = dir + "/state/audit.jsonl";
   EXPECT_TRUE(std::filesystem::exists(base + ".1"));
@@ -370,8 +370,8 @@ TEST(Engine, ReplayBySequenceFromTheJournalHistory) {
   e.SetLink(&link);
   e.OnConnected(10.0);
   FeedUntil(&e, kAfterLeakAlarm_s);
-  e.OnMessage("holdfast/v1/kestrel/commands/alice",
-              R"({"id":"c-1","segment":"KR-1","alarm":"leak","command":"acknowledge"})", 11.0);
+  e.OnMessage("holdfast/v1/quillfen/commands/alice",
+              R"({"id":"c-1","segment":"QS-1","alarm":"leak","command":"acknowledge"})", 11.0);
   const auto first = EventPayloads(link);
   ASSERT_EQ(first.size(), 2u);
   e.OnAcked(1);
@@ -379,13 +379,13 @@ TEST(Engine, ReplayBySequenceFromTheJournalHistory) {
   e.Poll(12.0);
   EXPECT_EQ(e.journal().pending_count(), 0u);
   link.sent.clear();
-  e.OnMessage("holdfast/v1/kestrel/commands/carol", R"({"id":"r-1","replay_from_seq":1})", 13.0);
+  e.OnMessage("holdfast/v1/quillfen/commands/carol", R"({"id":"r-1","replay_from_seq":1})", 13.0);
   std::vector<std::string> again;
   for (const Publication& p : link.sent)
-    if (p.topic == "holdfast/v1/kestrel/events/KR-1") again.push_back(p.payload);
+    if (p.topic == "holdfast/v1/quillfen/events/QS-1") again.push_back(p.payload);
   EXPECT_EQ(again, first);
   ASSERT_FALSE(link.sent.empty());
-  EXPECT_EQ(link.sent.back().topic, "holdfast/v1/kestrel/replies/carol");
+  EXPECT_EQ(link.sent.back().topic, "holdfast/v1/quillfen/replies/carol");
   EXPECT_NE(link.sent.back().payload.find("\"count\":2,\"first_seq\":1,\"last_seq\":2"), std::string::npos)
       << link.sent.back().payload;
   std::filesystem::remove_all(dir);

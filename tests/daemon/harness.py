@@ -7,7 +7,7 @@ import atexit, csv, json, os, shutil, signal, socket, subprocess, sys, tempfile,
 from collections import OrderedDict
 
 MOSQUITTO = "/usr/sbin/mosquitto"
-PREFIX = "holdfast/v1/kestrel"
+PREFIX = "holdfast/v1/quillfen"
 PASSWORDS = {"holdfastd": "daemon-pw-1", "feeder": "feeder-pw-2", "alice": "alice-pw-3",
              "bob": "bob-pw-4", "victor": "victor-pw-5", "mallory": "mallory-pw-6", "watcher": "watcher-pw-7"}
 # The broker ACL of config/DAEMON.md, for the prefix above.

@@ -22,7 +22,7 @@ std::string TempDir(const std::string& name) {
   return d;
 }
 
-JournalRecord Rec(uint64_t seq) { return JournalRecord{seq, "p/events/KR-1", "{\"seq\":" + std::to_string(seq) + "}"}; }
+JournalRecord Rec(uint64_t seq) { return JournalRecord{seq, "p/events/QS-1", "{\"seq\":" + std::to_string(seq) + "}"}; }
 
 TEST(Journal, Crc32KnownValue) {
   // The CRC-32 check value of "123456789" (from memory; the standard check value of CRC-32/IEEE).
@@ -75,7 +75,7 @@ TEST(Journal, TornAndDamagedTailsAreDropped) {
   const auto size = std::filesystem::file_size(path);
   {
     std::ofstream f(path, std::ios::app);
-    f << "J1 3 0000abcd 20 p/events/KR-1\t{\"se";  // a kill -9 in the middle of a write
+    f << "J1 3 0000abcd 20 p/events/QS-1\t{\"se";  // a kill -9 in the middle of a write
   }
   {
     Journal j;
@@ -173,7 +173,7 @@ TEST(Journal, ReadsRecordsOfTheFirstFormat) {
   std::filesystem::create_directories(dir);
   {
     std::ofstream f(dir + "/events.journal");
-    const std::string body = "p/events/KR-1\t{\"seq\":1}";
+    const std::string body = "p/events/QS-1\t{\"seq\":1}";
     char crc[16];
     std::snprintf(crc, sizeof crc, "%08x", Crc32(body));
     f << "J1 1 " << crc << " " << body.size() << " " << body << "\n";

@@ -115,24 +115,24 @@ TEST(Payload, LimitsOnSizeBatchAndClock) {
 }
 
 TEST(Topics, ClassifyTheTree) {
-  TopicTree t("holdfast/v1/kestrel");
-  EXPECT_EQ(t.Classify("holdfast/v1/kestrel/readings").kind, TopicKind::kBatchReadings);
-  const TopicMatch m = t.Classify("holdfast/v1/kestrel/readings/CF-FT-101");
+  TopicTree t("holdfast/v1/quillfen");
+  EXPECT_EQ(t.Classify("holdfast/v1/quillfen/readings").kind, TopicKind::kBatchReadings);
+  const TopicMatch m = t.Classify("holdfast/v1/quillfen/readings/CF-FT-101");
   EXPECT_EQ(m.kind, TopicKind::kPointReadings);
   EXPECT_EQ(m.arg, "CF-FT-101");
-  EXPECT_EQ(t.Classify("holdfast/v1/kestrel/commands/alice").arg, "alice");
-  EXPECT_EQ(t.Classify("holdfast/v1/kestrel/commands/alice/x").kind, TopicKind::kUnknown);
-  EXPECT_EQ(t.Classify("holdfast/v1/kestrelX/readings").kind, TopicKind::kUnknown);
-  EXPECT_EQ(t.Classify("holdfast/v1/kestrel/readings/").kind, TopicKind::kUnknown);
-  EXPECT_EQ(t.Classify("holdfast/v1/kestrel/events/KR-1").kind, TopicKind::kUnknown);
-  EXPECT_EQ(t.Events("KR-1"), "holdfast/v1/kestrel/events/KR-1");
+  EXPECT_EQ(t.Classify("holdfast/v1/quillfen/commands/alice").arg, "alice");
+  EXPECT_EQ(t.Classify("holdfast/v1/quillfen/commands/alice/x").kind, TopicKind::kUnknown);
+  EXPECT_EQ(t.Classify("holdfast/v1/quillfenX/readings").kind, TopicKind::kUnknown);
+  EXPECT_EQ(t.Classify("holdfast/v1/quillfen/readings/").kind, TopicKind::kUnknown);
+  EXPECT_EQ(t.Classify("holdfast/v1/quillfen/events/QS-1").kind, TopicKind::kUnknown);
+  EXPECT_EQ(t.Events("QS-1"), "holdfast/v1/quillfen/events/QS-1");
 }
 
 TEST(Command, ValidShelve) {
   CommandRequest req;
   std::string error;
-  const SegmentIndex segs = {{"KR-1", 0}};
-  ASSERT_EQ(ParseCommand(R"({"id":"c-1","segment":"KR-1","alarm":"leak","command":"shelve","duration_s":600,
+  const SegmentIndex segs = {{"QS-1", 0}};
+  ASSERT_EQ(ParseCommand(R"({"id":"c-1","segment":"QS-1","alarm":"leak","command":"shelve","duration_s":600,
                              "user":"alice","reason":"pigging"})",
                          "alice", segs, {"alice"}, &req, &error),
             CommandError::kNone)
@@ -144,7 +144,7 @@ TEST(Command, ValidShelve) {
 }
 
 TEST(Command, Rejections) {
-  const SegmentIndex segs = {{"KR-1", 0}};
+  const SegmentIndex segs = {{"QS-1", 0}};
   const std::vector<std::string> ops = {"alice"};
   struct C {
     const char* payload;
@@ -152,19 +152,19 @@ TEST(Command, Rejections) {
     CommandError e;
   } cases[] = {
       {"{", "alice", CommandError::kMalformedJson},
-      {R"({"segment":"KR-1","alarm":"leak","command":"acknowledge"})", "alice", CommandError::kBadField},
-      {R"({"id":"1","segment":"KR-1","alarm":"leak","command":"acknowledge"})", "mallory", CommandError::kNotAuthorised},
-      {R"({"id":"1","segment":"KR-1","alarm":"leak","command":"acknowledge","user":"bob"})", "alice",
+      {R"({"segment":"QS-1","alarm":"leak","command":"acknowledge"})", "alice", CommandError::kBadField},
+      {R"({"id":"1","segment":"QS-1","alarm":"leak","command":"acknowledge"})", "mallory", CommandError::kNotAuthorised},
+      {R"({"id":"1","segment":"QS-1","alarm":"leak","command":"acknowledge","user":"bob"})", "alice",
        CommandError::kUserMismatch},
-      {R"({"id":"1","segment":"KR-2","alarm":"leak","command":"acknowledge"})", "alice", CommandError::kUnknownSegment},
-      {R"({"id":"1","segment":"KR-1","alarm":"flood","command":"acknowledge"})", "alice", CommandError::kBadField},
-      {R"({"id":"1","segment":"KR-1","alarm":"leak","command":"suppress"})", "alice", CommandError::kBadField},
-      {R"({"id":"1","segment":"KR-1","alarm":"leak","command":"shelve"})", "alice", CommandError::kBadField},
-      {R"({"id":"1","segment":"KR-1","alarm":"leak","command":"shelve","duration_s":-5})", "alice",
+      {R"({"id":"1","segment":"QS-2","alarm":"leak","command":"acknowledge"})", "alice", CommandError::kUnknownSegment},
+      {R"({"id":"1","segment":"QS-1","alarm":"flood","command":"acknowledge"})", "alice", CommandError::kBadField},
+      {R"({"id":"1","segment":"QS-1","alarm":"leak","command":"suppress"})", "alice", CommandError::kBadField},
+      {R"({"id":"1","segment":"QS-1","alarm":"leak","command":"shelve"})", "alice", CommandError::kBadField},
+      {R"({"id":"1","segment":"QS-1","alarm":"leak","command":"shelve","duration_s":-5})", "alice",
        CommandError::kBadField},
-      {R"({"id":"1","segment":"KR-1","alarm":"leak","command":"acknowledge","duration_s":5})", "alice",
+      {R"({"id":"1","segment":"QS-1","alarm":"leak","command":"acknowledge","duration_s":5})", "alice",
        CommandError::kBadField},
-      {R"({"id":"1","segment":"KR-1","alarm":"leak","command":"acknowledge","sudo":true})", "alice",
+      {R"({"id":"1","segment":"QS-1","alarm":"leak","command":"acknowledge","sudo":true})", "alice",
        CommandError::kBadField},
   };
   for (const C& c : cases) {

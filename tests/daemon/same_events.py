@@ -28,7 +28,7 @@ def events_of_all_three(data, tag):
     d = os.path.join(work, tag)
     os.makedirs(d)
     cfg = os.path.join(d, "daemon.json")
-    json.dump({"format": "holdfast-daemon/1", "site_file": site, "topic_prefix": "holdfast/v1/kestrel",
+    json.dump({"format": "holdfast-daemon/1", "site_file": site, "topic_prefix": "holdfast/v1/quillfen",
                "journal_dir": d + "/j", "state_dir": d + "/s"}, open(cfg, "w"))
     daemon = run([holdfastd, "--config", cfg, "--input-csv", data]).stdout
     replay = run([holdfast, "replay", "--config", site, "--data", data]).stdout

@@ -36,10 +36,10 @@ class BatchFile : public ::testing::Test {
  protected:
   void SetUp() override {
     std::vector<ConfigProblem> problems;
-    ASSERT_TRUE(LoadSiteFile(kDemo + "kestrel-site.json", &site_, &problems));
+    ASSERT_TRUE(LoadSiteFile(kDemo + "quillfen-site.json", &site_, &problems));
     dir_ = std::filesystem::temp_directory_path() / ("holdfast-batch-" + std::to_string(::getpid()));
     std::filesystem::create_directories(dir_);
-    std::filesystem::copy_file(kDemo + "kestrel-eval-scenario.json", dir_ / "base.json",
+    std::filesystem::copy_file(kDemo + "quillfen-eval-scenario.json", dir_ / "base.json",
                                std::filesystem::copy_options::overwrite_existing);
   }
   void TearDown() override { std::filesystem::remove_all(dir_); }

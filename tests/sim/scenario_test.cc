@@ -21,8 +21,8 @@ namespace {
 
 using nlohmann::json;
 
-const std::string kSite = std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/kestrel-site.json";
-const std::string kScenario = std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/kestrel-scenario.json";
+const std::string kSite = std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/quillfen-site.json";
+const std::string kScenario = std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/quillfen-scenario.json";
 
 Site DemoSite() {
   Site site;
@@ -71,7 +71,7 @@ TEST(Scenario, DemoCompilesToWhatItSays) {
   Scenario sc;
   std::vector<ConfigProblem> problems;
   ASSERT_TRUE(LoadScenarioFile(kScenario, site, &sc, &problems)) << (problems.empty() ? "" : problems[0].ToString());
-  EXPECT_EQ(site.segments[static_cast<size_t>(sc.segment)].id, "KR-1");
+  EXPECT_EQ(site.segments[static_cast<size_t>(sc.segment)].id, "QS-1");
   EXPECT_DOUBLE_EQ(sc.duration_s, 6 * 3600.0);
   EXPECT_DOUBLE_EQ(sc.start_epoch_s, 1773468000.0);  // calendar.timegm((2026, 3, 14, 6, 0, 0))
   const MocSetup& m = sc.moc;
@@ -145,7 +145,7 @@ TEST(Scenario, ProblemsCarryTheirJsonPath) {
   EXPECT_TRUE(Has(lines, "/leaks/0/chainage_m: chainage 60000 m is outside the segment [0, 48000 m]")) << all;
   EXPECT_TRUE(Has(lines, "/leaks/0/rate/unit: unit \"bar\" is not a mass flow or volume flow unit")) << all;
   EXPECT_TRUE(Has(lines, "/leaks/1: give the leak's size one way")) << all;
-  EXPECT_TRUE(Has(lines, "/instruments/CF-PT-1O1: point \"CF-PT-1O1\" is not simulated in segment \"KR-1\" (did you mean \"CF-PT-101\"?)"))
+  EXPECT_TRUE(Has(lines, "/instruments/CF-PT-1O1: point \"CF-PT-1O1\" is not simulated in segment \"QS-1\" (did you mean \"CF-PT-101\"?)"))
       << all;
   EXPECT_TRUE(Has(lines, "/instruments/CF-FT-101/noise: unknown key \"noise\" (did you mean \"noise_pct\"?)")) << all;
   EXPECT_TRUE(Has(lines, "/laterals/MB-FT-302: \"MB-FT-302\" is not an injection or delivery meter")) << all;

@@ -24,8 +24,8 @@
 namespace holdfast::sim {
 namespace {
 
-const std::string kSite = std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/kestrel-site.json";
-const std::string kScenario = std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/kestrel-scenario.json";
+const std::string kSite = std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/quillfen-site.json";
+const std::string kScenario = std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/quillfen-scenario.json";
 
 struct Demo {
   Site site;

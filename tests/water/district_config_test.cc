@@ -176,7 +176,7 @@ TEST(WaterYearFile, DemoFileLoads) {
   water::WaterBalanceInputs in;
   std::string name;
   std::vector<ConfigProblem> problems;
-  ASSERT_TRUE(LoadWaterYearFile(std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/quenby-year.json", &in, &name,
+  ASSERT_TRUE(LoadWaterYearFile(std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/delvenmoor-year.json", &in, &name,
                                 &problems))
       << problems[0].ToString();
   EXPECT_EQ(in.system_input.size(), 2u);

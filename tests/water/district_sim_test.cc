@@ -20,7 +20,7 @@ namespace {
 
 using nlohmann::json;
 
-const std::string kSite = std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/quenby-site.json";
+const std::string kSite = std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/delvenmoor-site.json";
 
 class VectorSource final : public ReadingSource {
  public:

@@ -49,7 +49,7 @@ namespace {
 TEST(WaterHotPath, NoAllocationPerTick) {
   Site site;
   std::vector<ConfigProblem> problems;
-  ASSERT_TRUE(LoadSiteFile(std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/quenby-site.json", &site, &problems));
+  ASSERT_TRUE(LoadSiteFile(std::string(HOLDFAST_SOURCE_DIR) + "/config/demo/delvenmoor-site.json", &site, &problems));
   nlohmann::json j = {{"format", "holdfast-district-scenario/1"}, {"district", "QF-DMA-01"},
                       {"start", "2026-04-05T23:00:00Z"},           {"duration_days", 12},
                       {"seed", 3},

@@ -26,7 +26,7 @@ SystemInfrastructure Exact(double lm, double nc, double lp, double p) {
 // given in the IWA performance-indicator manual, Alegre et al. 2006):
 // UARL [L/day] = (18 Lm + 0.8 Nc + 25 Lp) P.
 TEST(Uarl, WorkedExampleSystem) {
-  // Worked by hand for the fictional Quenby Fold system (config/demo/quenby-year.json):
+  // Worked by hand for the fictional Delvenmoor system (config/demo/delvenmoor-year.json):
   // Lm 92 km, Nc 6300, Lp 9.5 km, P 48 m:
   // (18*92 + 0.8*6300 + 25*9.5) * 48 = (1656 + 5040 + 237.5) * 48 = 6933.5 * 48 = 332808 L/day.
   const UarlResult r = ComputeUarl(Exact(92, 6300, 9.5, 48));
@@ -168,7 +168,7 @@ TEST(IwaBalance, NinetyFivePercentLimitsBySummingVariances) {
 }
 
 TEST(IwaBalance, DemoYearFigures) {
-  // config/demo/quenby-year.json, by hand: SIV 1 515 000, authorised 1 087 000,
+  // config/demo/delvenmoor-year.json, by hand: SIV 1 515 000, authorised 1 087 000,
   // apparent 34 000, real losses 394 000 m3; NRW 455 000 m3 = 30.03 %.
   WaterBalanceInputs in;
   in.system_input = {{"works", 1420000, 2.0}, {"import", 95000, 3.0}};
