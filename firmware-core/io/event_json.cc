@@ -42,8 +42,10 @@ void AppendJsonString(std::string_view text, std::string* out) {
 
 const char* StatisticUnit(AlarmType type) {
   switch (type) {
-    case AlarmType::kLeak:
-    case AlarmType::kRupture: return "block_sigma";
+    case AlarmType::kLeak: return "block_sigma";
+    // The rupture path's statistic is the inlet's characteristic signal
+    // (rupture.h), a mass flow, against its threshold.
+    case AlarmType::kRupture: return "kg/s";
     case AlarmType::kDataQuality: return "points";
     case AlarmType::kBalanceUnavailable: return "none";
   }
@@ -93,6 +95,20 @@ void AppendEventJson(const Site& site, const AlarmEvent& e, std::string* out) {
   }
   out->append(",\"window_s\":");
   AppendNumber(e.evidence.window_s, "%.1f", out);
+  // What an operator acts on: the rate's uncertainty, the location band,
+  // the detector that leads (its target leak size) and a short detail
+  // (the nearest landmark, or the points and reasons of a data-quality
+  // alarm, or the rupture path's signals).
+  out->append(",\"leak_rate_sigma_kg_s\":");
+  AppendNumber(e.evidence.leak_rate_sigma_kg_s, "%.6f", out);
+  out->append(",\"location_low_m\":");
+  AppendNumber(e.evidence.location_low_m, "%.1f", out);
+  out->append(",\"location_high_m\":");
+  AppendNumber(e.evidence.location_high_m, "%.1f", out);
+  out->append(",\"detector_target_kg_s\":");
+  AppendNumber(e.evidence.detector_target_kg_s, "%.4f", out);
+  out->append(",\"detail\":");
+  AppendJsonString(std::string_view(e.evidence.detail, strnlen(e.evidence.detail, AlarmEvidence::kDetailSize)), out);
   out->append(",\"user\":");
   AppendJsonString(std::string_view(e.user, strnlen(e.user, AlarmEvent::kUserSize)), out);
   out->push_back('}');

@@ -748,6 +748,15 @@ void Monitor::UpdateAlarms(SegmentRuntime& s, int index, double t) {
       ev.location_m = out.location.chainage_m;
       ev.location_low_m = out.location.low_m;
       ev.location_high_m = out.location.high_m;
+      if (out.location.landmark >= 0) {
+        // "2.3 km downstream of <landmark>" (no heap: a stack buffer).
+        const LandmarkSpec& lm = s.spec->landmarks[static_cast<size_t>(out.location.landmark)];
+        const double off_km = out.location.landmark_offset_m / 1000.0;
+        char buf[AlarmEvidence::kDetailSize];
+        std::snprintf(buf, sizeof buf, "%.1f km %s of %s%s", std::fabs(off_km), off_km >= 0.0 ? "downstream" : "upstream",
+                      lm.name.c_str(), out.location.by_wave ? " (waves)" : "");
+        ev.SetDetail(buf);
+      }
     }
     a[static_cast<int>(AlarmType::kLeak)].Update(t, d.state == DecisionState::kLeak, ev);
     AlarmEvidence rv = ev;
@@ -763,8 +772,12 @@ void Monitor::UpdateAlarms(SegmentRuntime& s, int index, double t) {
       rv.threshold = s.rupture_ready ? options_.rupture.wave_share * s.rupture.threshold_kg_s() : kNaN;
       rv.window_s = rs.span_s;
       char buf[AlarmEvidence::kDetailSize];
-      std::snprintf(buf, sizeof buf, "waves in %.1f out %.1f kg/s, metered %.1f", rs.wave_in_kg_s,
-                    rs.wave_out_kg_s, rs.metered_kg_s);
+      if (std::isnan(rs.wave_out_kg_s))
+        std::snprintf(buf, sizeof buf, "waves: inlet %.1f kg/s, outlet fall %.0f kPa; metered %.1f kg/s",
+                      rs.wave_in_kg_s, rs.outlet_fall_pa / 1000.0, rs.metered_kg_s);
+      else
+        std::snprintf(buf, sizeof buf, "waves: inlet %.1f, outlet %.1f kg/s; metered %.1f kg/s", rs.wave_in_kg_s,
+                      rs.wave_out_kg_s, rs.metered_kg_s);
       rv.SetDetail(buf);
     }
     a[static_cast<int>(AlarmType::kRupture)].Update(t, out.rupture, rv);
