@@ -425,7 +425,7 @@ bool SimulateDistrict(const Site& site, const DistrictScenario& sc, DistrictSimR
                                : 0.0;
   // Truth for evaluation.
   double mean_night_head = 0.0;
-  for (const DistrictNightTruth& n : r.nights) mean_night_head += n.night_head_m / std::max<size_t>(1, r.nights.size());
+  for (const DistrictNightTruth& n : r.nights) mean_night_head += n.night_head_m / static_cast<double>(std::max<size_t>(1, r.nights.size()));
   r.truth.start_s = sc.start_epoch_s;
   r.truth.end_s = sc.start_epoch_s + static_cast<double>(steps) * dt;
   r.truth.nights = r.nights;

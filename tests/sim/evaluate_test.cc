@@ -234,7 +234,9 @@ TEST_F(BatchFile, ClockOnsetsRupturesAndFamilies) {
     if (op["action"] == "shut_in") ++shut_ins;
     const double at = op["at_s"].get<double>();
     // No daily operation inside a shut-in (with its half-hour clearance).
-    if (op["action"] == "setpoint") EXPECT_FALSE(at > 72000.0 - 1800.0 && at < 72000.0 + 36000.0 + 1800.0) << at;
+    if (op["action"] == "setpoint") {
+      EXPECT_FALSE(at > 72000.0 - 1800.0 && at < 72000.0 + 36000.0 + 1800.0) << at;
+    }
   }
   EXPECT_EQ(shut_ins, 1);  // day 1's; day 2's would end after the run
 }

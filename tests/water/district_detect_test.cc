@@ -86,7 +86,7 @@ TEST(DistrictMonitor, NightStepAlarmsOnTheFirstNightWithSizeAndChangeInterval) {
   o.alarm.latching = false;
   std::string why;
   ASSERT_TRUE(s.m.Init(0, o, false, &s.seq, &s.ring, &why)) << why;
-  const double t0 = DaysFromCivil(2026, 3, 2) * 86400.0;
+  const double t0 = static_cast<double>(DaysFromCivil(2026, 3, 2)) * 86400.0;
   const double step_at = t0 + 12.0 * 86400.0 + 15.0 * 3600.0;  // day 12, 15:00
   s.Run(t0, 16, 4.0, step_at, 1.5);
   ASSERT_EQ(s.bursts.size(), 1u);
@@ -110,7 +110,7 @@ TEST(DistrictMonitor, BurstInTheLearningPeriodIsReportedWhenTheBaselineForms) {
   water::DistrictMonitorOptions o;
   std::string why;
   ASSERT_TRUE(s.m.Init(0, o, false, &s.seq, &s.ring, &why)) << why;
-  const double t0 = DaysFromCivil(2026, 3, 2) * 86400.0;
+  const double t0 = static_cast<double>(DaysFromCivil(2026, 3, 2)) * 86400.0;
   const double step_at = t0 + 2.0 * 86400.0 + 10.0 * 3600.0;  // day 2, 10:00: inside the learning nights
   s.Run(t0, 12, 4.0, step_at, 2.0);
   ASSERT_EQ(s.bursts.size(), 1u) << (s.bursts.empty() ? "" : s.bursts[0].ToString());
@@ -124,7 +124,7 @@ TEST(DistrictMonitor, LargeDaytimeBurstTakesTheFastPath) {
   water::DistrictMonitorOptions o;
   std::string why;
   ASSERT_TRUE(s.m.Init(0, o, false, &s.seq, &s.ring, &why)) << why;
-  const double t0 = DaysFromCivil(2026, 3, 2) * 86400.0;
+  const double t0 = static_cast<double>(DaysFromCivil(2026, 3, 2)) * 86400.0;
   const double step_at = t0 + 10.0 * 86400.0 + 9.0 * 3600.0;  // day 10, 09:00
   s.Run(t0, 12, 4.0, step_at, 6.0);
   ASSERT_GE(s.bursts.size(), 1u);
@@ -142,7 +142,7 @@ TEST(DistrictMonitor, CustomerIntervalVolumesArePlacedInTheirBlocks) {
   water::DistrictMonitorOptions o;
   std::string why;
   ASSERT_TRUE(m.Init(0, o, true, &seq, &ring, &why)) << why;
-  const double t0 = DaysFromCivil(2026, 3, 2) * 86400.0;
+  const double t0 = static_cast<double>(DaysFromCivil(2026, 3, 2)) * 86400.0;
   std::vector<water::DistrictBlock> blocks;
   // Zone 10 m3/h, customers 7 m3/h reported as hourly totals at hour ends:
   // the residual is 3 m3/h once the filter has settled.
