@@ -198,7 +198,19 @@ json RunDoc(const BatchSpec& b, double duration_s, uint64_t seed) {
   // One truth sample an hour is plenty here (the evaluation reads the leak
   // rates and the totals from the truth, not the series).
   doc["truth_every_s"] = 3600.0;
+  doc["instrument_set_seed"] = b.instrument_set_seed;
   ApplyFamily(b, duration_s, seed, &doc);
+  if (b.meter_drift_pct_per_day > 0.0) {
+    json& inst = doc["instruments"];
+    if (!inst.is_object()) inst = json::object();
+    double sign = 1.0;
+    for (const std::string& id : b.flow_point_ids) {
+      json& p = inst[id];
+      if (!p.is_object()) p = json::object();
+      if (!p.contains("drift_pct_per_day")) p["drift_pct_per_day"] = sign * b.meter_drift_pct_per_day;
+      sign = -sign;
+    }
+  }
   return doc;
 }
 
@@ -458,7 +470,8 @@ struct RunPlan {
 // Simulates one run and feeds it through a monitor (seeded with `tuning`
 // unless it is null); `tuner` (tuning run only) sees every tick.
 RunOutcome ExecuteRun(const Site& site, const BatchSpec& b, const RunPlan& plan, const TuningFile* tuning,
-                      const Monitor::Options& mopt, Tuner* tuner) {
+                      const Monitor::Options& mopt, Tuner* tuner,
+                      const std::function<void(const Monitor&, int, double)>* trace = nullptr) {
   const auto t0 = std::chrono::steady_clock::now();
   RunOutcome o;
   o.kind = plan.kind;
@@ -540,6 +553,7 @@ RunOutcome ExecuteRun(const Site& site, const BatchSpec& b, const RunPlan& plan,
       if (st.status == SegmentStatus::kUnavailable) o.unavailable_s += dt;
     }
     if (tuner != nullptr) tuner->Tick(monitor, t);
+    if (trace != nullptr && *trace) (*trace)(monitor, seg, t);
     if (t >= respond_at) {
       // The operator finds no leak: acknowledges and restarts the detectors
       // (the excursion counts as normal operation for the learning).
@@ -980,12 +994,15 @@ bool LoadBatchFile(const std::string& path, const Site& site, BatchSpec* b, std:
   }
   b->path = path;
   rd.Keys(doc, "", {"format", "name", "scenario", "time_step_s", "budget_days", "tuning", "leak_free", "grid",
-                    "baseline", "ruptures", "instrument_families"});
+                    "baseline", "ruptures", "instrument_families", "instrument_set_seed",
+                    "meter_drift_pct_per_day"});
   if (!doc.contains("format") || doc["format"] != BatchFormatVersion())
     rd.Add("/format", std::string("expected \"") + BatchFormatVersion() + "\"");
   b->name = doc.value("name", std::string());
   rd.Number(doc, "time_step_s", "", false, 0.0, 10.0, &b->time_step_s, true);
   rd.Number(doc, "budget_days", "", false, 0.0, 36500.0, &b->budget_days, true);
+  rd.Seed(doc, "instrument_set_seed", "", &b->instrument_set_seed);
+  rd.Number(doc, "meter_drift_pct_per_day", "", false, 0.0, 1.0, &b->meter_drift_pct_per_day, false);
 
   if (!doc.contains("scenario") || !doc["scenario"].is_string()) {
     rd.Add("/scenario", "is required: the path of the base scenario (\"holdfast-scenario/1\")");
@@ -1015,6 +1032,7 @@ bool LoadBatchFile(const std::string& path, const Site& site, BatchSpec* b, std:
         // What "rough" sets on each simulated point (config/EVALUATE.md).
         b->rough_instruments = json::object();
         b->point_ids.clear();
+        b->flow_point_ids.clear();
         for (const PointPlan& pp : sc.points) {
           const PointSpec& ps = site.points[static_cast<size_t>(pp.point)];
           const double phi = std::pow(kRoughWanderPhiPerSecond, pp.instrument.sample_period_s);
@@ -1031,6 +1049,7 @@ bool LoadBatchFile(const std::string& path, const Site& site, BatchSpec* b, std:
           }
           b->rough_instruments[ps.id] = o;
           b->point_ids.push_back(ps.id);
+          if (ps.kind == PointKind::kFlow) b->flow_point_ids.push_back(ps.id);
         }
         const SegmentSpec& seg = site.segments[static_cast<size_t>(sc.segment)];
         if (!(seg.nominal_flow_kg_s > 0.0))
@@ -1221,7 +1240,8 @@ bool RunEvaluation(const Site& site, const BatchSpec& b, const EvaluateOptions& 
     for (;;) {
       const size_t i = next.fetch_add(1);
       if (i >= plans.size()) return;
-      RunOutcome o = ExecuteRun(site, b, plans[i], &seeded, mopt, nullptr);
+      RunOutcome o = ExecuteRun(site, b, plans[i], &seeded, mopt, nullptr,
+                                plans[i].kind == RunKind::kLeakFree ? &options.on_leak_free_tick : nullptr);
       std::lock_guard<std::mutex> lock(mu);
       outcomes[i] = std::move(o);
       ++done;

@@ -44,6 +44,7 @@
 #include <nlohmann/json.hpp>
 
 #include "holdfast/alarm.h"
+#include "holdfast/monitor.h"
 #include "holdfast/site.h"
 #include "holdfast/site_config.h"
 
@@ -59,6 +60,12 @@ struct BatchSpec {
   int segment = -1;             // site segment index (from the scenario)
   double time_step_s = 1.0;     // simulator time-step bound for every run
   double budget_days = 90.0;    // the monitor's false-alarm budget
+  // Every run simulates the same meters: their systematic errors come from
+  // this seed (the tuning learns the biases the leak-free and leak runs have),
+  // and every flow meter drifts slowly from the start of each run, by this
+  // much of its reading a day, the sign alternating from meter to meter.
+  uint64_t instrument_set_seed = 1;
+  double meter_drift_pct_per_day = 0.005;
   // Tuning run.
   double tuning_days = 2.0;
   uint64_t tuning_seed = 1;
@@ -94,6 +101,7 @@ struct BatchSpec {
   // settings), filled by LoadBatchFile; and the ids that get dropouts.
   nlohmann::json rough_instruments = nlohmann::json::object();
   std::vector<std::string> point_ids;
+  std::vector<std::string> flow_point_ids;  // the flow meters among them (drift)
   double base_start_epoch_s = 0.0;     // the clock's 00:00 for daily operations and onset hours
   // The leak-free run's status share ignores this much after its start.
   double startup_exclusion_s = 1800.0;
@@ -248,6 +256,9 @@ struct EvaluateOptions {
   int jobs = 0;  // worker threads; 0: the machine's cores
   // Called after each run finishes (from the calling thread's lock): done, total, the run.
   std::function<void(int, int, const RunOutcome&)> on_run;
+  // Called on every tick of the leak-free run (from its worker thread), after
+  // the monitor's tick: for traces of why a false alarm was raised.
+  std::function<void(const Monitor&, int segment, double t)> on_leak_free_tick;
   bool IsValid(std::string* why) const;
 };
 

@@ -66,7 +66,8 @@ bool InstrumentSpec::IsValid(std::string* why) const {
   return true;
 }
 
-void Instrument::Init(int point, const std::string& id, const InstrumentSpec& spec, uint64_t seed, double duration_s) {
+void Instrument::Init(int point, const std::string& id, const InstrumentSpec& spec, uint64_t seed, uint64_t bias_seed,
+                      double duration_s) {
   spec_ = spec;
   point_ = point;
   duration_s_ = duration_s;
@@ -75,7 +76,7 @@ void Instrument::Init(int point, const std::string& id, const InstrumentSpec& sp
   wander_rng_ = Rng(StreamSeed(seed, "wander/" + id));
   // Stationary start: w_0 ~ N(0, 1).
   wander_state_ = spec.wander_phi > 0.0 ? wander_rng_.Normal() : 0.0;
-  Rng bias(StreamSeed(seed, "bias/" + id));
+  Rng bias(StreamSeed(bias_seed, "bias/" + id));
   const double z1 = bias.Normal(), z2 = bias.Normal();
   bias_ = spec.bias + spec.bias_draw_sigma * z1;
   bias_fraction_ = spec.bias_fraction + spec.bias_draw_sigma_fraction * z2;

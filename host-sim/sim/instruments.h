@@ -120,7 +120,13 @@ struct SimReading {
 class Instrument {
  public:
   // `seed` is the scenario seed; `id` names the streams.
-  void Init(int point, const std::string& id, const InstrumentSpec& spec, uint64_t seed, double duration_s);
+  // `seed` drives the noise, timing and wander; `bias_seed` the systematic
+  // errors (the same meters keep the same biases from run to run).
+  void Init(int point, const std::string& id, const InstrumentSpec& spec, uint64_t seed, uint64_t bias_seed,
+            double duration_s);
+  void Init(int point, const std::string& id, const InstrumentSpec& spec, uint64_t seed, double duration_s) {
+    Init(point, id, spec, seed, seed, duration_s);
+  }
 
   bool enabled() const { return spec_.enabled; }
   // Time of the next sample due (since the start); infinity when done.

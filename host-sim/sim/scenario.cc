@@ -389,7 +389,7 @@ void Compiler::Run(const json& doc) {
     Add("", std::string("the document must be a JSON object with \"format\": \"") + kFormat + "\" (got " + Describe(doc) + ")");
     return;
   }
-  CheckKeys(doc, "", {"format", "name", "segment", "start", "duration_s", "seed", "time_step_s", "wave_speed_tolerance_pct",
+  CheckKeys(doc, "", {"format", "name", "segment", "start", "duration_s", "seed", "instrument_set_seed", "time_step_s", "wave_speed_tolerance_pct",
                       "property_step_s", "mass_fixer", "truth_every_s", "upstream", "downstream", "laterals", "operations",
                       "leaks", "temperature", "instrument_defaults", "instruments"});
   std::string format;
@@ -460,6 +460,15 @@ void Compiler::CompileTop(const json& doc) {
       Add("/seed", "must be a whole number (got " + Num(seed) + ")");
     } else {
       sc_->seed = static_cast<uint64_t>(seed);
+    }
+  }
+  sc_->instrument_set_seed = sc_->seed;
+  double set_seed = 0.0;
+  if (Range(doc, "instrument_set_seed", "", Need::kOptional, 0.0, false, kMaxSeed, false, &set_seed) == Got::kOk) {
+    if (set_seed != std::floor(set_seed)) {
+      Add("/instrument_set_seed", "must be a whole number (got " + Num(set_seed) + ")");
+    } else {
+      sc_->instrument_set_seed = static_cast<uint64_t>(set_seed);
     }
   }
   MocSetup& m = sc_->moc;

@@ -52,6 +52,9 @@ struct Scenario {
   double start_epoch_s = 0.0;
   double duration_s = 0.0;
   uint64_t seed = 1;
+  // Seed of the instruments' systematic errors (their biases): a site's meters
+  // keep theirs from run to run, so runs of one site share it ("instrument_set_seed"; default: seed).
+  uint64_t instrument_set_seed = 1;
   double truth_every_s = 60.0;
   MocSetup moc;
   std::vector<PointPlan> points;            // every point of the segment that gets readings

@@ -161,7 +161,7 @@ bool Simulate(const Site& site, const Scenario& sc, SimulationResult* result, st
   for (size_t i = 0; i < sc.points.size(); ++i) {
     const PointPlan& p = sc.points[i];
     const PointSpec& ps = site.points[static_cast<size_t>(p.point)];
-    inst[i].Init(p.point, ps.id, p.instrument, sc.seed, duration);
+    inst[i].Init(p.point, ps.id, p.instrument, sc.seed, sc.instrument_set_seed, duration);
     probes[i].plan = &p;
     probes[i].at = moc.MakeProbe(p.chainage_m);
     probes[i].z_pipe = moc.Elevation(probes[i].at);

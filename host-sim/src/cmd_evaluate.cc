@@ -21,10 +21,66 @@ namespace {
 
 struct EvaluateArgs {
   std::string config, batch, out, report_script, family;  // report_script empty: FindToolScript
+  std::string trace;  // per-minute CSV of the leak-free run (empty: none)
   int jobs = 0;
   bool no_report = false, quiet = false;
 };
 
+
+// Per-minute means of the leak-free run's balance and the decision's state,
+// for finding out why a false alarm was raised.
+class LeakFreeTrace {
+ public:
+  bool Open(const std::string& path) {
+    f_ = std::fopen(path.c_str(), "w");
+    if (f_ == nullptr) return false;
+    std::fprintf(f_,
+                 "time_s,status,decision,reduced_sensitivity,transient_ticks,leak_like_ticks,inflow_kg_s,outflow_kg_s,"
+                 "inventory_rate_kg_s,residual_kg_s,linepack_kg,mean_temperature_k,bias_kg_s,sigma_kg_s,phi,"
+                 "lead_ratio,lead_target_kg_s,volatility_scale\n");
+    return true;
+  }
+  ~LeakFreeTrace() {
+    if (f_ != nullptr) std::fclose(f_);
+  }
+  void Tick(const Monitor& m, int seg, double t) {
+    const SegmentTick& st = m.segment(seg);
+    // Every tick of the rupture condition, with its signals (for finding what
+    // raised a rupture alarm in a leak-free run).
+    if (st.rupture) std::fprintf(f_, "# rupture t=%.0f %s\n", t, st.rupture_status.ToString().c_str());
+    ++n_;
+    in_ += st.inflow_kg_s;
+    out_ += st.outflow_kg_s;
+    inv_ += st.inventory_rate_kg_s;
+    res_ += st.residual_kg_s;
+    transient_ += st.transient;
+    leak_like_ += st.leak_like;
+    if (t < next_s_) return;
+    next_s_ = t + 60.0;
+    const DecisionResult& d = st.decision;
+    double ratio = 0.0, target = 0.0;
+    for (int i = 0; i < d.detector_count; ++i) {
+      const DetectorStatus& x = d.detectors[static_cast<size_t>(i)];
+      if (x.h > 0.0 && x.statistic / x.h > ratio) {
+        ratio = x.statistic / x.h;
+        target = x.target_kg_s;
+      }
+    }
+    const double n = static_cast<double>(n_);
+    std::fprintf(f_, "%.0f,%s,%s,%d,%d,%d,%.4f,%.4f,%.4f,%.4f,%.1f,%.3f,%.4f,%.4f,%.3f,%.3f,%.3f,%.2f\n", t,
+                 SegmentStatusName(st.status), DecisionStateName(d.state), d.reduced_sensitivity ? 1 : 0,
+                 transient_, leak_like_, in_ / n, out_ / n, inv_ / n, res_ / n, st.linepack_kg,
+                 st.mean_temperature_k, d.bias_kg_s, d.sigma_kg_s, d.phi, ratio, target, d.volatility_scale);
+    n_ = transient_ = leak_like_ = 0;
+    in_ = out_ = inv_ = res_ = 0.0;
+  }
+
+ private:
+  std::FILE* f_ = nullptr;
+  double next_s_ = -1e300;
+  int n_ = 0, transient_ = 0, leak_like_ = 0;
+  double in_ = 0.0, out_ = 0.0, inv_ = 0.0, res_ = 0.0;
+};
 
 int RunFamily(const EvaluateArgs& a, const Site& site, const sim::BatchSpec& batch, const std::string& out,
               std::string* criteria);
@@ -85,6 +141,15 @@ int RunFamily(const EvaluateArgs& a, const Site& site, const sim::BatchSpec& bat
                  batch.tuning_days, batch.leak_free_days, grid);
   sim::EvaluateOptions options;
   options.jobs = a.jobs;
+  std::unique_ptr<LeakFreeTrace> trace;
+  if (!a.trace.empty()) {
+    trace = std::make_unique<LeakFreeTrace>();
+    if (!trace->Open(a.trace)) {
+      std::fprintf(stderr, "--trace-leak-free %s: cannot write\n", a.trace.c_str());
+      return 1;
+    }
+    options.on_leak_free_tick = [&trace](const Monitor& m, int seg, double t) { trace->Tick(m, seg, t); };
+  }
   const bool tty = ::isatty(2) != 0;
   options.on_run = [&](int done, int total, const sim::RunOutcome& o) {
     if (a.quiet) return;
@@ -155,6 +220,8 @@ void Register(CLI::App& app, int* exit_code) {
   cmd->add_option("--report-script", args->report_script, "The report script (default: installed beside holdfast, else the source tree's tools/)");
   cmd->add_flag("--quiet", args->quiet, "No progress on standard error");
   cmd->add_option("--family", args->family, "Run only this instrument family of the batch (standard, rough)");
+  cmd->add_option("--trace-leak-free", args->trace,
+                  "Write a per-minute CSV of the leak-free run (balance, decision state, detector ratio) to FILE");
   cmd->callback([args, exit_code] { *exit_code = RunEvaluate(*args); });
 }
 
