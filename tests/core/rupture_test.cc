@@ -71,10 +71,7 @@ TEST(RuptureDetector, BIsAreaOverWaveSpeed) {
 // do with it, s_in = dm_in - B dP_in = q and s_out = -dm_out - B dP_out = q.
 // Boundary behaviours: a reservoir holding pressure (the flow takes it
 // all), half and half, and mostly pressure (a stiff pump or a flow
-// controller that gives a little). Ends that hold their flow exactly leave
-// the metered shortfall unmoved: the fast path needs it to grow (so that a
-// pump trip into a flow-controlled outlet is not a rupture), and such a
-// line's rupture is the decision's (documented limitation).
+// controller that gives a little).
 TEST(RuptureDetector, LeakIsSeenWhateverTheEndsDo) {
   const double q = 30.0;
   for (double share : {0.1, 0.5, 1.0}) {
@@ -89,12 +86,97 @@ TEST(RuptureDetector, LeakIsSeenWhateverTheEndsDo) {
     EXPECT_TRUE(RunChange(&r, c)) << "share " << share << ": " << r.det.status().ToString();
     EXPECT_NEAR(r.det.status().estimate_kg_s, q, 1e-6);
   }
+  // Ends that hold their flow exactly leave the metered shortfall unmoved:
+  // only the pressures fall, and with both flows held that can only be mass
+  // leaving the line. Both ends' waves arrive (neither end's other invariant
+  // g = m + B P at the inlet, -m + B P at the outlet moved by more than its
+  // wave), so the inlet's signal is raised by the one-end path.
   Rig r = MakeRig();
   Change held;
   held.dp_in = held.dp_out = -q / r.b;
   held.residual = q;
-  EXPECT_FALSE(RunChange(&r, held));
-  EXPECT_NEAR(r.det.status().estimate_kg_s, q, 1e-6);  // seen, not raised
+  EXPECT_TRUE(RunChange(&r, held)) << r.det.status().ToString();
+  EXPECT_EQ(r.det.status().one_end, 1);
+  EXPECT_NEAR(r.det.status().estimate_kg_s, q, 1e-6);  // s_in = -B dP_in
+  // Without the one-end path, both ends must see the metered shortfall grow.
+  RuptureOptions two;
+  two.one_end = false;
+  Rig r2 = MakeRig(two);
+  EXPECT_FALSE(RunChange(&r2, held));
+  EXPECT_NEAR(r2.det.status().estimate_kg_s, q, 1e-6);  // seen, not raised
+}
+
+// Changes at the two ends at different times: the inlet's at `steady_s`,
+// the outlet's `delay_s` later (a wave's travel time, or never when it is
+// longer than the run).
+bool RunStaggered(Rig* r, const Change& c, double delay_s, double steady_s, double after_s, double residual_from_s) {
+  bool raised = false;
+  for (int k = 0; k < steady_s + after_s; ++k) {
+    const bool in_on = k >= steady_s, out_on = k >= steady_s + delay_s;
+    RuptureInput in;
+    in.inflow_kg_s = 200.0 + (in_on ? c.dm_in : 0.0);
+    in.p_inlet_pa = 60e5 + (in_on ? c.dp_in : 0.0);
+    in.outflow_kg_s = 180.0 + (out_on ? c.dm_out : 0.0);
+    in.p_outlet_pa = 5e5 + (out_on ? c.dp_out : 0.0);
+    in.lateral_out_kg_s = 20.0;
+    in.residual_kg_s = k >= steady_s + residual_from_s ? c.residual : 0.0;
+    raised = raised || r->det.Step(k, in).rupture;
+  }
+  return raised;
+}
+
+// A rupture near the inlet of a long line: the inlet hears it at once (the
+// pump runs out along its curve: half the wave in flow, half in pressure);
+// the outlet would hear it only after L / a, longer than a minute on a long
+// line, so the alarm must not wait for it.
+TEST(RuptureDetector, NearEndRuptureIsRaisedBeforeTheFarEndHears) {
+  const double q = 40.0;
+  Rig r = MakeRig();
+  Change c;
+  c.dm_in = 0.5 * q;
+  c.dp_in = -0.5 * q / r.b;
+  c.residual = q;
+  EXPECT_TRUE(RunStaggered(&r, c, 1e9, 240.0, 30.0, 5.0)) << r.det.status().ToString();
+  EXPECT_EQ(r.det.status().one_end, 1);
+  EXPECT_NEAR(r.det.status().estimate_kg_s, q, 1e-6);  // s_in = dm - B dP
+}
+
+// A pump slowing at the inlet: its own wave leaves s_in unmoved (dm = B dP)
+// and moves g_in; when the wave reaches a flow-controlled outlet its
+// pressure falls and s_out grows like a leak's, but the inlet's own change
+// lies within the far end's look-back, so the outlet may not lead.
+TEST(RuptureDetector, PumpSlowdownIntoAFlowControlledOutletIsNotARupture) {
+  Rig r = MakeRig();
+  const double travel_s = 37.0;  // about L / a on the rig's 40 km line
+  Change c;
+  c.dm_in = -25.0;
+  c.dp_in = -25.0 / r.b;
+  c.dm_out = 0.0;
+  c.dp_out = -50.0 / r.b;  // the wave doubled on the held end
+  c.residual = 30.0;       // a line-pack estimate lagging the waves
+  EXPECT_FALSE(RunStaggered(&r, c, travel_s, 240.0, 200.0, travel_s)) << r.det.status().ToString();
+}
+
+// An outlet valve opening: the outlet's own wave (flow up, pressure down)
+// reaches the inlet L / a later as a pressure fall with the pump's flow
+// rising, which at the inlet alone reads like a leak's wave. The outlet's
+// own change (g_out) and the metered shortfall falling keep it out.
+TEST(RuptureDetector, OutletValveOpeningIsNotARuptureAtTheInlet) {
+  Rig r = MakeRig();
+  const double travel_s = 37.0;
+  const double x = 30.0;
+  bool raised = false;
+  for (int k = 0; k < 500; ++k) {
+    RuptureInput in;
+    in.outflow_kg_s = 180.0 + (k >= 240 ? x : 0.0);
+    in.p_outlet_pa = 5e5 - (k >= 240 ? x / r.b : 0.0);
+    in.inflow_kg_s = 200.0 + (k >= 240 + travel_s ? 0.5 * x : 0.0);
+    in.p_inlet_pa = 60e5 - (k >= 240 + travel_s ? 0.5 * x / r.b : 0.0);
+    in.lateral_out_kg_s = 20.0;
+    in.residual_kg_s = k >= 240 ? 0.6 * x : 0.0;  // a lagging line-pack estimate
+    raised = raised || r.det.Step(k, in).rupture;
+  }
+  EXPECT_FALSE(raised) << r.det.status().ToString();
 }
 
 // A pump slowdown at the inlet: the wave it sends satisfies the invariant
@@ -145,6 +227,74 @@ TEST(RuptureDetector, NeedsAQuietLineBefore) {
       in.p_outlet_pa -= 15.0 / r.b;
       in.residual_kg_s = 30.0;
     }
+    raised = raised || r.det.Step(k, in).rupture;
+  }
+  EXPECT_FALSE(raised) << r.det.status().ToString();
+}
+
+// A rupture far from both ends of a long line: neither end hears it within
+// the look-back, while the line pack from the transmitters near it falls at
+// the leak's rate. A transmitter stepping down instead moves the line pack
+// once: a large imbalance for one tick, nothing after it. The path learns
+// its noise gate for the first half hour.
+TEST(RuptureDetector, MidLineRuptureIsRaisedFromTheLineBeforeEitherEndHears) {
+  const double q = 40.0;
+  Rig r = MakeRig();
+  int raised_at = -1;
+  RuptureStatus first;
+  for (int k = 0; k < 2100 && raised_at < 0; ++k) {
+    RuptureInput in;
+    in.inflow_kg_s = 200.0;
+    in.outflow_kg_s = 180.0;
+    in.lateral_out_kg_s = 20.0;
+    in.p_inlet_pa = 60e5;
+    in.p_outlet_pa = 5e5;
+    in.residual_kg_s = (k >= 2040 ? q : 0.0) + 0.5 * std::sin(0.7 * k);  // a little noise for its gate
+    if (r.det.Step(k, in).rupture) {
+      raised_at = k;
+      first = r.det.status();
+    }
+  }
+  ASSERT_GE(raised_at, 2040) << r.det.status().ToString();
+  // The last half of the look-back (30 s) must be mostly leak, its oldest
+  // third half of it: about 25 s after the onset with 5 s end means.
+  EXPECT_LE(raised_at - 2040, 35);
+  EXPECT_EQ(first.one_end, 3);
+  // The rate over those 30 s, the part before the onset included.
+  EXPECT_GE(first.estimate_kg_s, 0.5 * q);
+  EXPECT_LE(first.estimate_kg_s, q + 0.5);
+
+  Rig step = MakeRig();
+  bool raised = false;
+  for (int k = 0; k < 2200; ++k) {
+    RuptureInput in;
+    in.inflow_kg_s = 200.0;
+    in.outflow_kg_s = 180.0;
+    in.lateral_out_kg_s = 20.0;
+    in.p_inlet_pa = 60e5;
+    in.p_outlet_pa = 5e5;
+    in.residual_kg_s = k == 2050 ? 60.0 * q : 0.0;  // as much mass in one tick as the leak in a minute
+    raised = raised || step.det.Step(k, in).rupture;
+  }
+  EXPECT_FALSE(raised) << step.det.status().ToString();
+}
+
+// A blocked-in line whose waves slosh between its closed ends: no flow at
+// either end, the inlet pressure falling while the outlet's rises, and a
+// line-pack estimate that lags the waves. At a closed end nothing tells an
+// arriving wave from the end's own, so the far end's opposite signal keeps
+// it out of the one-end path.
+TEST(RuptureDetector, SloshingBlockedInLineIsNotARupture) {
+  Rig r = MakeRig();
+  const double x = 25.0;  // kg/s of wave signal at each end
+  bool raised = false;
+  for (int k = 0; k < 500; ++k) {
+    RuptureInput in;
+    in.lateral_out_kg_s = 0.0;
+    const double phase = k >= 240 ? std::min(1.0, (k - 240) / 20.0) : 0.0;
+    in.p_inlet_pa = 40e5 - phase * x / r.b;
+    in.p_outlet_pa = 38e5 + phase * x / r.b;
+    in.residual_kg_s = 0.7 * x * phase;
     raised = raised || r.det.Step(k, in).rupture;
   }
   EXPECT_FALSE(raised) << r.det.status().ToString();

@@ -82,6 +82,24 @@ struct DecisionOptions {
   // since the change point is the blocks' sum plus tau times the change of
   // the block rate (exact for a first-order filter, whenever the leak began).
   double input_filter_s = 0.0;
+  // Local volatility of the innovations. The detectors' z is divided by
+  // sqrt(max(1, v - (volatility_free_ratio - 1))), where v is an exponentially
+  // weighted variance (time constant volatility_time_constant_s) of z clipped
+  // at +-volatility_clip_sigmas, taken around its own exponentially weighted
+  // mean, so that a leak's lasting shift of the mean does not count and its
+  // first large innovation is clipped. In steady operation v stays near 1: its
+  // effective sample is about 2 tau / block - 1 = 59 blocks, so in control it
+  // has a standard deviation of about sqrt(2/59) = 0.18 and 1.5 is some 2.7 of
+  // them, and the detectors see z unchanged; beyond that free margin the
+  // scale takes nearly all of the excess (at v = 9 the detectors see a
+  // variance of 9 / 8.5). Where the line-pack model is
+  // worse than the learnt noise (the hours after a restart while temperature
+  // fronts move, pressure settling in a blocked-in line) the innovations
+  // grow, and the detectors widen their sigma by what the residual itself
+  // shows instead of alarming on model error. 0: off.
+  double volatility_time_constant_s = 1800.0;
+  double volatility_clip_sigmas = 4.0;
+  double volatility_free_ratio = 1.5;
 
   bool IsValid(std::string* why) const;
 };
@@ -119,6 +137,7 @@ struct DecisionResult {
   double sigma_kg_s = 0.0;           // block standard deviation (learnt)
   double phi = 0.0;                  // lag-one autocorrelation of blocks
   double arl0_blocks = 0.0;          // per-detector in-control ARL from the budget
+  double volatility_scale = 1.0;     // the detectors' sigma is widened by this (>= 1)
   std::string ToString() const;
 };
 
@@ -220,6 +239,9 @@ class SegmentDecision {
   // Previous block's deviation r - bias, for prewhitening.
   double prev_e_ = 0.0;
   bool has_prev_e_ = false;
+  // Exponentially weighted mean and variance of the clipped z (West 1979,
+  // weighted incremental form), volatility_time_constant_s.
+  double volatility_ = 1.0, volatility_mean_ = 0.0;
 };
 
 }  // namespace holdfast

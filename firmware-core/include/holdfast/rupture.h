@@ -45,6 +45,37 @@
 //     line pack and tanks included) is at least balance_share x the
 //     threshold (a restart into a tank inside the segment fills the tank).
 // Values at both ends of the look-back are means over average_s.
+//
+// One end first. The later end hears a leak at chainage x only after
+// max(x, L - x) / a, at least L / 2a (45 s on a 90 km line) and damped by
+// friction, so waiting for both ends cannot alarm within a minute on a long
+// line. The other invariant at each end tells an operator's change from an
+// arriving wave: at the inlet g_in = m_in + B P_in, at the outlet g_out =
+// -m_out + B P_out change only by the wave the end itself sends into the
+// line, which for a passive boundary (pump on its curve, fixed valve,
+// reservoir) is a reflection no larger than the arriving wave (|dg| <= |ds|),
+// and for an operator's change is all of it (ds = 0). A rupture is also
+// raised from one end (one_end) when that end's signal grew by wave_share x
+// the threshold out of a quiet line (as above), the compensated imbalance
+// agrees, the metered shortfall did not fall, no metered lateral changed,
+// the far end showed no operator's change (|dg| <= |ds| + quiet) over
+// the look-back plus 1.25 L / a (the time its waves take to arrive), and
+// the far end's own signal did not move the other way by more than a
+// quarter of the leading end's over the look-back (a blocked-in line's waves slosh between its closed
+// ends: a fall at one end while the other rises). With a tank inside the
+// segment the outlet's signal is not measured: only the inlet may lead, and
+// the outlet pressure must not have risen (B dP within that quarter).
+// On a long line neither end may hear a far rupture within a minute, while
+// the transmitters near it see the line pack fall at once: it is also raised
+// from the line itself (one_end 3) when the compensated imbalance over the
+// last half of the look-back is a lasting shortfall (at least the threshold
+// over it, and half of it in each of its thirds: a transmitter's step is one
+// instant of line-pack change, not a rate), the line was balanced from the
+// reference to it, and neither end made a change of its own or hears a
+// compression. The line pack's own noise over seconds can be a good share
+// of the threshold on a long line with few transmitters, so each of those
+// thirds must also exceed 6 of its learnt in-control sigmas (learnt over the
+// first half hour after a start, while this path stays off).
 #pragma once
 
 #include <string>
@@ -66,6 +97,7 @@ struct RuptureOptions {
   double balance_share = 0.5;   // compensated imbalance over the look-back, share of the threshold
   double quiet_share = 0.5;     // largest move before the look-back, share of the threshold
   double pressure_sigmas = 4.0; // outlet without a pipe-end meter: its fall, in sigmas
+  bool one_end = true;          // also raise from one end (the header's "One end first")
   bool IsValid(std::string* why) const;
 };
 
@@ -91,6 +123,10 @@ struct RuptureStatus {
   double span_s = 0.0;           // look-back actually covered
   double wave_in_before_kg_s = 0.0;  // move of s_in less laterals from reference_s ago to the look-back (NaN: not yet)
   double metered_before_kg_s = 0.0;  // move of the metered shortfall over the same
+  double far_in_kg_s = 0.0;      // inlet's own change |dg_in| - |ds_in| over the extended look-back
+  double far_out_kg_s = 0.0;     // outlet's likewise (tank inside: B x the outlet pressure rise)
+  int one_end = 0;               // 0: both ends (or none); 1: raised from the inlet alone; 2: the outlet alone;
+                                 // 3: from the line's own imbalance before either end hears it
   // True when the look-back shows a leak-like change at both ends (the wave
   // conditions and the metered growth at `threshold_kg_s`, no lateral
   // changed by more than half of it): an
@@ -124,6 +160,7 @@ class RuptureDetector {
  private:
   struct Sample {
     double t = 0.0, s_in = 0.0, s_out = 0.0, lat = 0.0, net = 0.0, p_in = 0.0, p_out = 0.0, cum_res_kg = 0.0;
+    double g_in = 0.0, g_out = 0.0;  // the other invariant at each end (the header's "One end first")
   };
   // Mean of the samples with time in [from, to] (by index walk from `first`).
   Sample MeanOver(int first, int n, double from, double to) const;
@@ -133,9 +170,15 @@ class RuptureDetector {
   double b_in_ = 0.0, b_out_ = 0.0;  // A / a at each end, m s
   bool outlet_at_pipe_end_ = true;
   double outlet_sigma_pa_ = 0.0;
+  double span_s_ = 0.0;  // kept look-back: max(reference_s, window_s + 1.25 L / a + 2 average_s)
+  bool one_end_ok_ = false;  // the ring covers the far end's travel time
   std::vector<Sample> ring_;
   int head_ = 0, count_ = 0;
   double cum_res_kg_ = 0.0, last_t_ = 0.0;
+  // The line-itself path's noise gate: the in-control spread of the
+  // imbalance over a sixth of the look-back (exponentially weighted, one
+  // hour), and how long it has been learnt.
+  double part_rate_var_ = 0.0, part_rate_learnt_s_ = 0.0;
   RuptureStatus status_;
 };
 

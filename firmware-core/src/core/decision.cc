@@ -36,14 +36,20 @@ bool DecisionOptions::IsValid(std::string* why) const {
     return fail("decision: transient_hold_s must be zero or positive");
   if (!(input_filter_s >= 0.0) || !std::isfinite(input_filter_s))
     return fail("decision: input_filter_s must be zero or positive");
+  if (!(volatility_time_constant_s >= 0.0) || !std::isfinite(volatility_time_constant_s))
+    return fail("decision: volatility_time_constant_s must be zero or positive");
+  if (!(volatility_clip_sigmas >= 1.0) || !std::isfinite(volatility_clip_sigmas))
+    return fail("decision: volatility_clip_sigmas must be at least 1");
+  if (!(volatility_free_ratio >= 1.0) || !std::isfinite(volatility_free_ratio))
+    return fail("decision: volatility_free_ratio must be at least 1");
   return true;
 }
 
 std::string DecisionResult::ToString() const {
   char buf[200];
-  std::snprintf(buf, sizeof buf, "%s%s bias=%.4f kg/s sigma=%.4f kg/s phi=%.3f leak=%.4f kg/s",
-                DecisionStateName(state), reduced_sensitivity ? "(reduced)" : "", bias_kg_s, sigma_kg_s, phi,
-                leak_rate_kg_s);
+  std::snprintf(buf, sizeof buf, "%s%s bias=%.4f kg/s sigma=%.4f kg/s (x%.2f volatility) phi=%.3f leak=%.4f kg/s",
+                DecisionStateName(state), reduced_sensitivity ? "(reduced)" : "", bias_kg_s, sigma_kg_s,
+                volatility_scale, phi, leak_rate_kg_s);
   std::string s = buf;
   for (int i = 0; i < detector_count; ++i) {
     std::snprintf(buf, sizeof buf, " [%.3g kg/s: S=%.2f h=%.2f]", detectors[i].target_kg_s, detectors[i].statistic,
@@ -120,6 +126,8 @@ bool SegmentDecision::Init(const DecisionOptions& options, double nominal_flow_k
   deciding_ = 0;
   prev_e_ = 0.0;
   has_prev_e_ = false;
+  volatility_ = 1.0;
+  volatility_mean_ = 0.0;
   return true;
 }
 
@@ -310,7 +318,21 @@ void SegmentDecision::EndBlock(double t) {
   const double sigma_eff = sigma_lr;
   // The first block after a start or a gap has no predecessor: its marginal
   // distribution is N(0, sigma^2).
-  const double z = has_prev ? (e - phi * prev_e) / (sigma * std::sqrt(1.0 - phi * phi)) : e / sigma;
+  const double z_raw = has_prev ? (e - phi * prev_e) / (sigma * std::sqrt(1.0 - phi * phi)) : e / sigma;
+  // Local volatility (options' comment): this block is judged with the
+  // volatility seen before it, then joins it (not while a transient holds
+  // the statistics: an operator's step is not the model's usual error).
+  const double scale = std::sqrt(std::max(1.0, volatility_ - (options_.volatility_free_ratio - 1.0)));
+  const double z = z_raw / scale;
+  result_.volatility_scale = scale;
+  if (options_.volatility_time_constant_s > 0.0) {
+    const double a = std::min(1.0, options_.block_s / options_.volatility_time_constant_s);
+    const double c = options_.volatility_clip_sigmas;
+    const double zc = std::clamp(z_raw, -c, c);
+    const double dev = zc - volatility_mean_;
+    volatility_mean_ += a * dev;
+    volatility_ += a * (dev * dev * (1.0 - a) - volatility_);
+  }
   ++block_index_;
   // Detectors start as the bias becomes known well enough for them (see
   // kStartBiasErrorFraction): the small-k ones are the sensitive ones. With

@@ -9,6 +9,18 @@
 
 namespace holdfast {
 
+// One end first: the far end's opposite-signed signal over the look-back, as
+// a share of the leading end's (a leak sends none; a sloshing blocked-in
+// line about as much as it sends the leading end).
+constexpr double kOppositeShare = 0.25;
+// The line-itself path's noise gate (the header): each third of its 30 s
+// must exceed this many learnt sigmas of the in-control 10 s imbalance rate,
+// learnt for kPartNoiseLearn_s after a start (the path is off meanwhile) and
+// then followed with time constant kPartNoiseTau_s.
+constexpr double kPartNoiseSigmas = 6.0;
+constexpr double kPartNoiseLearn_s = 1800.0;
+constexpr double kPartNoiseTau_s = 3600.0;
+
 bool RuptureOptions::IsValid(std::string* why) const {
   auto fail = [&](const char* m) { if (why) *why = m; return false; };
   if (!(window_s > 0.0)) return fail("rupture: window_s must be positive");
@@ -26,18 +38,20 @@ bool RuptureOptions::IsValid(std::string* why) const {
 }
 
 bool RuptureStatus::LeakLike(double threshold_kg_s) const {
+  if (one_end != 0) return true;
   const bool out_ok = std::isnan(wave_out_kg_s) ? outlet_fall_pa > 0.0 : wave_out_kg_s >= threshold_kg_s;
   return wave_in_kg_s >= threshold_kg_s && out_ok && metered_kg_s > 0.0 &&
          std::fabs(lateral_change_kg_s) <= 0.5 * threshold_kg_s;
 }
 
 std::string RuptureStatus::ToString() const {
-  char buf[384];
+  char buf[512];
   std::snprintf(buf, sizeof buf,
                 "rupture=%d wave_in=%.3f kg/s wave_out=%.3f kg/s outlet_fall=%.0f Pa metered=%.3f kg/s "
-                "balance=%.3f kg/s estimate=%.3f kg/s span=%.1f s before: wave_in=%.3f metered=%.3f kg/s",
+                "balance=%.3f kg/s estimate=%.3f kg/s span=%.1f s before: wave_in=%.3f metered=%.3f kg/s "
+                "one_end=%d far: in=%.3f out=%.3f kg/s",
                 rupture ? 1 : 0, wave_in_kg_s, wave_out_kg_s, outlet_fall_pa, metered_kg_s, balance_kg_s,
-                estimate_kg_s, span_s, wave_in_before_kg_s, metered_before_kg_s);
+                estimate_kg_s, span_s, wave_in_before_kg_s, metered_before_kg_s, one_end, far_in_kg_s, far_out_kg_s);
   return buf;
 }
 
@@ -60,9 +74,18 @@ bool RuptureDetector::Init(const RuptureOptions& options, const SegmentSpec& seg
   // leaves the tank, not the pipe end.
   outlet_at_pipe_end_ = segment.tanks.empty();
   outlet_sigma_pa_ = outlet_pressure_sigma_pa;
-  ring_.assign(static_cast<size_t>(std::ceil(options.reference_s / tick_s)) + 2, Sample{});
+  double travel_s = 0.0;  // L / a, section by section
+  for (const PipeSection& s : segment.sections) travel_s += s.length_m / WaveSpeed(bulk_modulus_pa, density_kg_m3, s);
+  const double far_span_s = options.window_s + 1.25 * travel_s + 2.0 * options.average_s;
+  span_s_ = std::max(options.reference_s, far_span_s);
+  // The ring is bounded (one hour of ticks): a line too long for it has no one-end path.
+  constexpr double kMaxRing_s = 3600.0;
+  one_end_ok_ = options.one_end && far_span_s <= kMaxRing_s;
+  span_s_ = std::min(span_s_, std::max(options.reference_s, kMaxRing_s));
+  ring_.assign(static_cast<size_t>(std::ceil(span_s_ / tick_s)) + 2, Sample{});
   head_ = count_ = 0;
   cum_res_kg_ = 0.0;
+  part_rate_var_ = part_rate_learnt_s_ = 0.0;
   status_ = RuptureStatus{};
   return true;
 }
@@ -77,11 +100,13 @@ RuptureDetector::Sample RuptureDetector::MeanOver(int first, int n, double from,
     if (s.t > to) break;
     m.t += s.t; m.s_in += s.s_in; m.s_out += s.s_out; m.lat += s.lat; m.net += s.net; m.p_out += s.p_out;
     m.cum_res_kg += s.cum_res_kg;
+    m.g_in += s.g_in; m.g_out += s.g_out;
     ++k;
   }
   if (k > 0) {
     const double w = 1.0 / k;
     m.t *= w; m.s_in *= w; m.s_out *= w; m.lat *= w; m.net *= w; m.p_out *= w; m.cum_res_kg *= w;
+    m.g_in *= w; m.g_out *= w;
   }
   return m;
 }
@@ -101,11 +126,13 @@ const RuptureStatus& RuptureDetector::Step(double t, const RuptureInput& in) {
   s.p_in = in.p_inlet_pa;
   s.p_out = in.p_outlet_pa;
   s.cum_res_kg = cum_res_kg_;
+  s.g_in = in.inflow_kg_s + b_in_ * in.p_inlet_pa;
+  s.g_out = -in.outflow_kg_s + b_out_ * in.p_outlet_pa;
   const int slot = (head_ + count_) % size;
   if (count_ == size) head_ = (head_ + 1) % size; else ++count_;
   ring_[slot] = s;
   // Drop samples older than the longer reference.
-  while (count_ > 1 && t - ring_[head_].t > options_.reference_s + 1e-9) {
+  while (count_ > 1 && t - ring_[head_].t > span_s_ + 1e-9) {
     head_ = (head_ + 1) % size;
     --count_;
   }
@@ -121,9 +148,11 @@ const RuptureStatus& RuptureDetector::Step(double t, const RuptureInput& in) {
   while (back < count_ - first - 1 && t - ring_[(head_ + count_ - 2 - back) % size].t <= options_.average_s + 1e-9)
     ++back;
   const Sample b = MeanOver((head_ + count_ - 1 - back) % size, back + 1, t - options_.average_s - 1e-9, t);
-  const double t_ref = ring_[head_].t;
+  int ref_first = 0;  // the first sample within reference_s
+  while (ref_first < count_ - 1 && t - ring_[(head_ + ref_first) % size].t > options_.reference_s + 1e-9) ++ref_first;
+  const double t_ref = ring_[(head_ + ref_first) % size].t;
   const bool have_ref = t - t_ref >= options_.reference_s - options_.average_s;
-  const Sample r = MeanOver(head_, count_, t_ref, t_ref + options_.average_s);
+  const Sample r = MeanOver((head_ + ref_first) % size, count_ - ref_first, t_ref, t_ref + options_.average_s);
   status_.wave_in_before_kg_s = have_ref ? (a.s_in - r.s_in) - (a.lat - r.lat) : kNaN;
   status_.metered_before_kg_s = have_ref ? a.net - r.net : kNaN;
   const double dlat = b.lat - a.lat;
@@ -157,6 +186,87 @@ const RuptureStatus& RuptureDetector::Step(double t, const RuptureInput& in) {
   status_.rupture = status_.wave_in_kg_s >= wave && outlet_ok && ref_ok && laterals_quiet &&
                     status_.metered_kg_s >= options_.metered_share * thr &&
                     status_.balance_kg_s >= options_.balance_share * thr;
+  status_.one_end = 0;
+  status_.far_in_kg_s = status_.far_out_kg_s = kNaN;
+  // One end first (the header): the far end's own change over the look-back
+  // plus its waves' travel time.
+  // The line-itself path's noise gate: the newest sixth of the look-back's
+  // imbalance rate, learnt while it is within the gate (a leak's is not).
+  if (have_ref) {
+    const double part_s = options_.window_s / 6.0;
+    const Sample p = MeanOver((head_ + first) % size, count_ - first, t - part_s - options_.average_s, t - part_s);
+    const double x = (b.cum_res_kg - p.cum_res_kg) / std::max(1e-9, b.t - p.t);
+    const double dt = std::max(0.0, t - ring_[(head_ + count_ - 2 + size) % size].t);
+    const bool learning = part_rate_learnt_s_ < kPartNoiseLearn_s;
+    if (learning || x * x <= kPartNoiseSigmas * kPartNoiseSigmas * part_rate_var_) {
+      const double w = learning ? dt / std::max(dt, part_rate_learnt_s_ + dt) : std::min(1.0, dt / kPartNoiseTau_s);
+      part_rate_var_ += w * (x * x - part_rate_var_);
+      part_rate_learnt_s_ += dt;
+    }
+  }
+  const double t_far = ring_[head_].t;
+  if (one_end_ok_ && !status_.rupture && t - t_far >= span_s_ - options_.average_s - 1e-9 && laterals_quiet &&
+      status_.balance_kg_s >= options_.balance_share * thr && status_.metered_kg_s >= 0.0) {
+    const Sample f = MeanOver(head_, count_, t_far, t_far + options_.average_s);
+    status_.far_in_kg_s = std::fabs(b.g_in - f.g_in) - std::fabs(b.s_in - f.s_in);
+    status_.far_out_kg_s = outlet_at_pipe_end_ ? std::fabs(b.g_out - f.g_out) - std::fabs(b.s_out - f.s_out)
+                                               : b_out_ * (b.p_out - f.p_out);
+    // The far end must not be hearing the opposite wave over the look-back
+    // (more than kOppositeShare of the leading end's signal)
+    // (a compression where a leak sends a rarefaction): a blocked-in line's
+    // waves slosh between its closed ends, a fall at one end while the other
+    // rises, and at a closed end no invariant tells an arriving wave from
+    // the end's own.
+    const double out_opposite = outlet_at_pipe_end_ ? -status_.wave_out_kg_s : -b_out_ * status_.outlet_fall_pa;
+    const double in_opposite = -status_.wave_in_kg_s;
+    if (status_.wave_in_kg_s >= wave && ref_ok && status_.far_out_kg_s <= quiet &&
+        out_opposite <= kOppositeShare * status_.wave_in_kg_s) {
+      status_.one_end = 1;
+    } else if (outlet_at_pipe_end_ && status_.wave_out_kg_s >= wave && status_.far_in_kg_s <= quiet &&
+               in_opposite <= kOppositeShare * status_.wave_out_kg_s) {
+      const double out_before = have_ref ? (a.s_out - r.s_out) - (a.lat - r.lat) : 0.0;
+      if (std::fabs(out_before) <= quiet && std::fabs(status_.metered_before_kg_s) <= quiet &&
+          (!have_ref || std::fabs(a.lat - r.lat) <= quiet))
+        status_.one_end = 2;
+    }
+    // The line itself (one_end 3): on a long line neither end may hear a
+    // far rupture within the look-back, but the line pack from the
+    // transmitters near it falls at once. Raised when the compensated
+    // imbalance over the last half of the look-back is a lasting shortfall
+    // (at least the threshold over it, and half of it in each of its thirds:
+    // a transmitter's step is one instant of line-pack change, which the
+    // end means smear over two thirds at most, not a rate), the line was
+    // balanced from the reference to it, neither end made a change of its
+    // own (far_in, far_out) or hears a compression, and the metered
+    // shortfall did not fall.
+    if (status_.one_end == 0 && ref_ok && have_ref && status_.far_in_kg_s <= quiet &&
+        status_.far_out_kg_s <= quiet && in_opposite <= kOppositeShare * thr &&
+        out_opposite <= kOppositeShare * thr && part_rate_learnt_s_ >= kPartNoiseLearn_s) {
+      const double part_s = options_.window_s / 6.0;
+      Sample m[4];
+      for (int k = 0; k < 3; ++k) {
+        const double tb = t - (3 - k) * part_s;
+        m[k] = MeanOver((head_ + first) % size, count_ - first, tb - options_.average_s, tb);
+      }
+      m[3] = b;
+      auto rate = [](const Sample& x, const Sample& y) {
+        return (y.cum_res_kg - x.cum_res_kg) / std::max(1e-9, y.t - x.t);
+      };
+      const double lasting = rate(m[0], m[3]);
+      const double weakest = std::min({rate(m[0], m[1]), rate(m[1], m[2]), rate(m[2], m[3])});
+      const double before = rate(r, m[0]);
+      const double out_before = outlet_at_pipe_end_ ? (a.s_out - r.s_out) - (a.lat - r.lat) : 0.0;
+      const double gate = kPartNoiseSigmas * std::sqrt(part_rate_var_);
+      if (lasting >= thr && weakest >= std::max(0.5 * thr, gate) && std::fabs(before) <= quiet &&
+          std::fabs(out_before) <= quiet) {
+        status_.one_end = 3;
+        status_.estimate_kg_s = lasting;
+      }
+    }
+    status_.rupture = status_.one_end != 0;
+    if (status_.one_end == 1) status_.estimate_kg_s = status_.wave_in_kg_s;
+    if (status_.one_end == 2) status_.estimate_kg_s = status_.wave_out_kg_s;
+  }
   return status_;
 }
 
