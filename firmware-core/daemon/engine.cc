@@ -679,7 +679,8 @@ std::string Engine::StatusJson(std::string_view state, double now_s) const {
   }
   const AlignerCounters& a = monitor_.counters();
   s += "},\"aligner\":{\"late\":" + std::to_string(a.late) + ",\"out_of_order\":" + std::to_string(a.out_of_order) +
-       ",\"duplicate\":" + std::to_string(a.duplicate) + "}";
+       ",\"duplicate\":" + std::to_string(a.duplicate) +
+       ",\"spike\":" + std::to_string(a.spike) + ",\"held_back\":" + std::to_string(a.held_back) + "}";
   s += ",\"lead_guard\":{\"max_lead_s\":" + std::to_string(options_.max_lead_s) +
        ",\"quarantined\":" + std::to_string(scheduler_.quarantined() - scheduler_.quarantine_released()) +
        ",\"released_by_consensus\":" + std::to_string(scheduler_.quarantine_released()) +

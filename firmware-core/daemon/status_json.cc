@@ -123,6 +123,7 @@ std::string SegmentStatusJson(const Monitor& m, int segment) {
   flag(kDqOutOfRange, "out_of_range");
   flag(kDqRateOfChange, "rate_of_change");
   flag(kDqFlatline, "flatline");
+  flag(kDqSpike, "spike");
   s += "]}}";
   return s;
 }

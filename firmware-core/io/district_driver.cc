@@ -99,6 +99,9 @@ bool DistrictRunner::Init(const Site& site, int district, double tick_s, std::st
   // frozen for days.
   DataQualityOptions dq;
   dq.flatline_s = kDistrictFlatline_s;
+  // Water loggers step legitimately (a pump, a valve, a reservoir filling):
+  // no one-sample confirmation of jumps.
+  dq.spike_check = false;
   aligner_.Reset(site, dq);
   events_.Clear();
   water::DistrictProperties props{spec_->households, spec_->non_households, spec_->population};

@@ -27,11 +27,13 @@ std::string ReadingCounts(const AlignerCounters& c) {
   char buf[512];
   std::snprintf(buf, sizeof buf,
                 "taken %llu (on_time %llu, after_tick %llu: arrived after their tick was computed, used from the "
-                "next tick); of these excluded: bad_quality=%llu out_of_range=%llu rate_of_change=%llu; ignored: "
+                "next tick); of these excluded: bad_quality=%llu out_of_range=%llu rate_of_change=%llu spike=%llu (of %llu "
+                "jumps held back one reading); ignored: "
                 "out_of_order=%llu duplicate=%llu unknown_point=%llu not_finite=%llu",
                 static_cast<unsigned long long>(c.accepted + c.late), static_cast<unsigned long long>(c.accepted),
                 static_cast<unsigned long long>(c.late), static_cast<unsigned long long>(c.bad_quality),
                 static_cast<unsigned long long>(c.out_of_range), static_cast<unsigned long long>(c.rate_of_change),
+                static_cast<unsigned long long>(c.spike), static_cast<unsigned long long>(c.held_back),
                 static_cast<unsigned long long>(c.out_of_order), static_cast<unsigned long long>(c.duplicate),
                 static_cast<unsigned long long>(c.unknown_point), static_cast<unsigned long long>(c.not_finite));
   return buf;

@@ -908,6 +908,25 @@ int RunReplayCommand(const ReplayArgs& a) {
     if (run.ticks > 0)
       for (int i = 0; i < monitor.segment_count(); ++i) segs.push_back(SegmentSummary(monitor, i));
     s["segments"] = segs;
+    // The spike check's record (DataQualityOptions): counts, and each point
+    // that had a jump held back with the times of its dropped spikes.
+    nlohmann::ordered_json dq;
+    dq["spikes"] = monitor.counters().spike;
+    dq["held_back"] = monitor.counters().held_back;
+    nlohmann::ordered_json dq_points = nlohmann::ordered_json::array();
+    for (int p = 0; p < monitor.aligner().point_count(); ++p) {
+      const HeldValue& h = monitor.aligner().held(p);
+      if (h.held_back == 0) continue;
+      nlohmann::ordered_json e;
+      e["point"] = site.points[static_cast<size_t>(p)].id;
+      e["held_back"] = h.held_back;
+      e["spikes"] = h.spikes;
+      e["first_spike"] = h.spikes ? nlohmann::ordered_json(FormatIsoUtc(h.first_spike_s, 3)) : nlohmann::ordered_json();
+      e["last_spike"] = h.spikes ? nlohmann::ordered_json(FormatIsoUtc(h.last_spike_s, 3)) : nlohmann::ordered_json();
+      dq_points.push_back(e);
+    }
+    dq["points"] = dq_points;
+    s["data_quality"] = dq;
     std::FILE* f = std::fopen(a.summary.c_str(), "w");
     if (!f) {
       std::fprintf(stderr, "--summary: cannot write %s: %s\n", a.summary.c_str(), std::strerror(errno));

@@ -5,7 +5,10 @@
 #include "holdfast/aligner.h"
 
 #include <cmath>
+#include <cstdint>
+#include <cstdio>
 #include <limits>
+#include <random>
 #include <string>
 
 #include <gtest/gtest.h>
@@ -76,7 +79,7 @@ TEST_F(AlignerTest, StartsEmptyAndUnusable) {
   }
   EXPECT_EQ(aligner_.counters().ToString(),
             "accepted=0 late=0 out_of_order=0 duplicate=0 unknown_point=0 not_finite=0 bad_quality=0 "
-            "out_of_range=0 rate_of_change=0");
+            "out_of_range=0 rate_of_change=0 spike=0 held_back=0");
 }
 
 TEST_F(AlignerTest, ConvertsToSiOnEntry) {
@@ -265,6 +268,194 @@ TEST_F(AlignerTest, FrozenNeedsEvidenceOfNoise) {
   for (int i = 0; i < 2000; ++i, v += 10.0) aligner_.Feed(At(kTemperature, v, 15.0 + (i / 10) % 2 * 0.1));
   for (int i = 0; i < 60480; ++i, v += 10.0) aligner_.Feed(At(kTemperature, v, 15.0));
   EXPECT_EQ(aligner_.Dq(kTemperature, v), 0);
+}
+
+// --- Spike check (DataQualityOptions::spike_*): one-sample confirmation. ---
+
+// Standard normal deviates by the Marsaglia & Bray (1964) polar method from a
+// fixed mt19937_64 stream, so the runs below are the same on every platform.
+class Normal01 {
+ public:
+  explicit Normal01(uint64_t seed) : rng_(seed) {}
+  double operator()() {
+    if (has_spare_) {
+      has_spare_ = false;
+      return spare_;
+    }
+    double u, v, s;
+    do {
+      u = 2.0 * Uniform() - 1.0;
+      v = 2.0 * Uniform() - 1.0;
+      s = u * u + v * v;
+    } while (s >= 1.0 || s == 0.0);
+    const double f = std::sqrt(-2.0 * std::log(s) / s);
+    spare_ = v * f;
+    has_spare_ = true;
+    return u * f;
+  }
+
+ private:
+  double Uniform() { return static_cast<double>(rng_() >> 11) * 0x1.0p-53; }
+  std::mt19937_64 rng_;
+  double spare_ = 0.0;
+  bool has_spare_ = false;
+};
+
+// A 0-100 bar gauge pressure (range in SI, as the config compiler sets it)
+// with 0.02 bar of noise, as the demo line's transmitters: 8 sigma = 0.16 bar
+// is below the range term 0.2 % x 100 bar = 0.2 bar, which sets the threshold.
+class SpikeTest : public AlignerTest {
+ protected:
+  void SetUp() override {
+    site_ = SmallSite();
+    site_.points[kPressure].range_min = kAtm_pa;
+    site_.points[kPressure].range_max = kAtm_pa + 100e5;
+    aligner_.Reset(site_);
+    for (int i = 0; i < 300; ++i) Next(50.0 + 0.02 * noise_());
+  }
+  FeedStatus Next(double bar) { return aligner_.Feed(At(kPressure, t_ += 2.0, bar)); }
+  double Bar() const { return (aligner_.value(kPressure) - kAtm_pa) / 1e5; }
+  double t_ = 0.0;
+  Normal01 noise_{2026};
+};
+
+TEST_F(SpikeTest, SpikeIsDroppedAndFlagged) {
+  const double before = Bar();
+  // A 2 bar spike (the demo's fault): held back, the old value stands.
+  EXPECT_EQ(Next(52.0), FeedStatus::kAccepted);
+  const double spike_t = t_;
+  EXPECT_DOUBLE_EQ(Bar(), before);
+  EXPECT_EQ(aligner_.counters().held_back, 1u);
+  EXPECT_EQ(aligner_.counters().spike, 0u);
+  EXPECT_EQ(aligner_.Dq(kPressure, t_) & kDqSpike, 0);
+  // The next reading is back at the old level: the spike is dropped, flagged,
+  // and the point stays in use.
+  Next(50.01);
+  EXPECT_NEAR(Bar(), 50.01, 1e-9);
+  EXPECT_EQ(aligner_.counters().spike, 1u);
+  EXPECT_EQ(aligner_.Dq(kPressure, t_), kDqSpike);
+  EXPECT_EQ(PointDqNames(aligner_.Dq(kPressure, t_)), "spike");
+  EXPECT_TRUE(aligner_.Usable(kPressure, t_));
+  EXPECT_EQ(aligner_.held(kPressure).spikes, 1u);
+  EXPECT_DOUBLE_EQ(aligner_.held(kPressure).first_spike_s, spike_t);
+  EXPECT_DOUBLE_EQ(aligner_.held(kPressure).last_spike_s, spike_t);
+  // The flag is the latest reading's: the next one clears it.
+  Next(49.99);
+  EXPECT_EQ(aligner_.Dq(kPressure, t_), 0);
+  // A negative spike the same way.
+  Next(47.5);
+  Next(50.0);
+  EXPECT_EQ(aligner_.counters().spike, 2u);
+  EXPECT_EQ(aligner_.counters().held_back, 2u);
+}
+
+TEST_F(SpikeTest, RealStepIsTakenOneReadingLate) {
+  // A step of 3 bar: the first reading at the new level is held back ...
+  Next(53.0);
+  EXPECT_LT(Bar(), 50.5);
+  // ... and the second confirms it: both are taken, no spike.
+  Next(53.01);
+  EXPECT_NEAR(Bar(), 53.01, 1e-9);
+  EXPECT_EQ(aligner_.counters().held_back, 1u);
+  EXPECT_EQ(aligner_.counters().spike, 0u);
+  EXPECT_EQ(aligner_.Dq(kPressure, t_), 0);
+  // The new level is learnt as any other: noise around it passes.
+  for (int i = 0; i < 100; ++i) Next(53.0 + 0.02 * noise_());
+  EXPECT_EQ(aligner_.counters().held_back, 1u);
+  // A ramp of 0.5 bar a reading is taken one reading late all along.
+  for (int i = 1; i <= 10; ++i) {
+    Next(53.0 + 0.5 * i);
+    if (i > 1) {
+      EXPECT_NEAR(Bar(), 53.0 + 0.5 * (i - 1), 1e-9) << i;
+    }
+  }
+  EXPECT_EQ(aligner_.counters().spike, 0u);
+}
+
+TEST_F(SpikeTest, ThresholdIsTheLargerOfNoiseAndRange) {
+  // 0.15 bar is below the 0.2 bar range term: taken at once.
+  Next(50.15);
+  EXPECT_NEAR(Bar(), 50.15, 1e-9);
+  Next(50.0);
+  EXPECT_EQ(aligner_.counters().held_back, 0u);
+  // 0.25 bar is above it: held back.
+  Next(50.25);
+  EXPECT_EQ(aligner_.counters().held_back, 1u);
+}
+
+TEST_F(SpikeTest, UnconfirmedJumpIsTakenAfterTheHoldLimit) {
+  // A report-by-exception point may send nothing after a step: the held-back
+  // reading is taken at the first tick more than spike_hold_max_s (30 s) later.
+  Next(55.0);
+  aligner_.SetTickTime(t_ + 20.0);
+  EXPECT_LT(Bar(), 50.5);
+  aligner_.SetTickTime(t_ + 31.0);
+  EXPECT_NEAR(Bar(), 55.0, 1e-9);
+  EXPECT_DOUBLE_EQ(aligner_.held(kPressure).time_s, t_);
+  EXPECT_EQ(aligner_.counters().spike, 0u);
+}
+
+TEST_F(SpikeTest, BadQualityInBetweenLeavesTheHeldBackReading) {
+  Next(52.0);
+  aligner_.Feed(At(kPressure, t_ += 2.0, 0.0, Quality::kBad));
+  Next(50.0);
+  EXPECT_EQ(aligner_.counters().spike, 1u);
+}
+
+TEST(SpikeOptions, DefaultsAreValidAndBadValuesNamed) {
+  DataQualityOptions o;
+  std::string why;
+  EXPECT_TRUE(o.IsValid(&why)) << why;
+  o.spike_sigmas = 0.5;
+  EXPECT_FALSE(o.IsValid(&why));
+  EXPECT_NE(why.find("spike_sigmas"), std::string::npos);
+  o = DataQualityOptions{};
+  o.spike_range_fraction = -0.1;
+  EXPECT_FALSE(o.IsValid(&why));
+  EXPECT_NE(why.find("spike_range_fraction"), std::string::npos);
+  o = DataQualityOptions{};
+  o.spike_hold_max_s = 0.0;
+  EXPECT_FALSE(o.IsValid(&why));
+  EXPECT_NE(why.find("spike_hold_max_s"), std::string::npos);
+}
+
+// Held-back readings on white Gaussian noise, against the normal tail. The
+// check compares |v - last good| with k learnt sigmas; v - last good is the
+// difference of two independent N(0, sigma^2) values, N(0, 2 sigma^2), so
+// P(held back) = 2 Q(k / sqrt 2) = erfc(k / 2): erfc(2) = 0.0046777349810 for
+// k = 4 and erfc(4) = 1.5417257900e-08 for k = 8 (Abramowitz & Stegun 1964,
+// eq. 7.1.2 and table 7.1; the same from scipy.special.erfc and Python's
+// math.erfc). A level in mm without a range, so only the noise term counts.
+uint64_t HeldBackOnNoise(const DataQualityOptions& dq, int readings, uint64_t* spikes) {
+  Site site = SmallSite();
+  Aligner a;
+  a.Reset(site, dq);
+  Normal01 n01(20261205);
+  for (int i = 0; i < readings; ++i) a.Feed(At(kLevel, 1.0 + i, 5000.0 + n01()));
+  *spikes = a.counters().spike;
+  return a.counters().held_back;
+}
+
+TEST(SpikeOnNoise, FalseTripRateFollowsTheNormalTail) {
+  constexpr int kReadings = 1000000;
+  // k = 4, long learning (so the learnt sigma is close to the true one):
+  // 4677.7 expected, Poisson sd 68; 10 % allows the learnt sigma's own
+  // scatter and the clipping of |d| at the threshold (about 0.2 % low).
+  DataQualityOptions four;
+  four.spike_sigmas = 4.0;
+  four.spike_learning_readings = 5000.0;
+  uint64_t spikes = 0;
+  const double held = static_cast<double>(HeldBackOnNoise(four, kReadings, &spikes));
+  const double expected = kReadings * 0.0046777349810;  // erfc(2)
+  EXPECT_NEAR(held, expected, 0.10 * expected);
+  // Default k = 8: 0.015 expected in a million readings; P(3 or more) for a
+  // Poisson mean of 0.015 is 5.6e-7. Noise never trips it.
+  DataQualityOptions deflt;
+  const uint64_t held8 = HeldBackOnNoise(deflt, kReadings, &spikes);
+  EXPECT_LE(held8, 2u);
+  EXPECT_EQ(spikes, 0u);
+  std::printf("held back on 1e6 Gaussian readings: k=4 %.0f (erfc(2) x 1e6 = %.1f), k=8 %llu\n", held, expected,
+              static_cast<unsigned long long>(held8));
 }
 
 TEST_F(AlignerTest, ResetForgetsEverything) {

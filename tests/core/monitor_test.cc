@@ -255,6 +255,32 @@ TEST(Monitor, OutOfRangeReadingIsExcluded) {
   EXPECT_EQ(m.counters().out_of_range, 1u);
 }
 
+// A one-reading spike (held back, then dropped when the next reading returns)
+// is recorded on the point but neither excludes the point nor makes the
+// segment suspect or degraded, and raises no data-quality alarm.
+TEST(Monitor, SpikeIsRecordedNotSuspect) {
+  const Line l = MakeLine();
+  Monitor m;
+  ASSERT_TRUE(m.Init(l.site, nullptr));
+  std::mt19937_64 rng(5);
+  for (int k = 0; k < 900; ++k) FeedSecond(l, &m, k, 100.0, 1e9, 0.0, 0.0, &rng);
+  const double held = m.aligner().value(l.p0);
+  m.Feed({l.p0, 900.0, held + 2e5, Quality::kGood});  // a 2 bar spike at the inlet
+  EXPECT_EQ(m.aligner().value(l.p0), held);
+  m.Advance(900.0);
+  for (int k = 901; k < 1200; ++k) {
+    FeedSecond(l, &m, k, 100.0, 1e9, 0.0, 0.0, &rng);
+    if (k == 901) {
+      EXPECT_NE(m.segment(0).point_dq & kDqSpike, 0);
+      EXPECT_EQ(m.segment(0).flags & kSegPointSuspect, 0u);
+      EXPECT_EQ(m.segment(0).points_unusable, 0);
+    }
+  }
+  EXPECT_EQ(m.counters().spike, 1u);
+  EXPECT_EQ(m.counters().held_back, 1u);
+  EXPECT_EQ(m.alarm(0, AlarmType::kDataQuality).state(), AlarmState::kNormal);
+}
+
 TEST(Monitor, NoDataQualityAlarmDuringStartupGrace) {
   const Line l = MakeLine();
   Monitor m;

@@ -33,6 +33,8 @@ enum PointDq : uint8_t {
   kDqBadQuality = 1u << 3,   // latest reading flagged bad by its source (excluded)
   kDqStale = 1u << 4,        // no good value within the staleness limit (set at tick: unusable)
   kDqMissing = 1u << 5,      // no good value ever (set at tick: unusable)
+  kDqSpike = 1u << 6,        // a one-reading spike was just dropped (the reading after it returned);
+                             // informational: the point stays in use and the segment is not suspect
 };
 // Comma-separated names of the set PointDq flags ("" when none).
 std::string PointDqNames(uint8_t dq);
@@ -66,6 +68,32 @@ struct DataQualityOptions {
   double frozen_learning_readings = 200.0;
   // At least this many repeats, whatever the change share.
   int frozen_min_repeats = 12;
+
+  // Spike check (one-sample confirmation). A good reading that jumps from
+  // the point's last good value by more than
+  //   max(spike_sigmas * sigma, spike_range_fraction * (range_max - range_min))
+  // is held back one reading (sigma: the point's learnt noise; the range term
+  // is 0 for a point without a configured range). If the next reading stays
+  // away from the old level, both are taken: a real step costs one reading
+  // of delay. If it returns to within that threshold of the old level, the
+  // held-back reading was a spike: it is dropped, the last good value stays,
+  // and the point's data quality carries kDqSpike. Water districts switch it
+  // off: their loggers step legitimately (io/district_driver).
+  bool spike_check = true;
+  double spike_sigmas = 8.0;
+  double spike_range_fraction = 0.002;
+  // sigma is learnt from the reading-to-reading change d of accepted readings:
+  // for white noise d ~ N(0, 2 sigma^2), so E|d| = 2 sigma / sqrt(pi) (the
+  // half-normal mean, E|X| = s sqrt(2/pi); Johnson, Kotz & Balakrishnan 1994,
+  // vol. 1, ch. 13). |d| is clipped at the threshold, and averaged with weight
+  // max(1/n, 1/spike_learning_readings).
+  double spike_learning_readings = 200.0;
+  // The check starts once this many changes have been learnt.
+  int spike_min_learnt = 20;
+  // A held-back reading that no further reading confirms or refutes within
+  // this time is taken at the next tick (a report-by-exception point may send
+  // nothing after a step for a whole heartbeat).
+  double spike_hold_max_s = 30.0;
   bool IsValid(std::string* why) const;
 };
 
@@ -79,6 +107,8 @@ struct AlignerCounters {
   uint64_t bad_quality = 0;  // accepted readings flagged bad by the source
   uint64_t out_of_range = 0;     // readings outside the point's range (excluded)
   uint64_t rate_of_change = 0;   // readings that jumped implausibly fast (excluded)
+  uint64_t held_back = 0;        // jumps held back one reading by the spike check
+  uint64_t spike = 0;            // of these, spikes: the next reading returned (excluded)
   std::string ToString() const;
 };
 
@@ -99,6 +129,18 @@ struct HeldValue {
   double change_share = 0.0;
   int32_t repeats = 0;
   int32_t learnt = 0;
+  // Spike check (DataQualityOptions): learnt mean |change| between accepted
+  // readings and its count; the reading held back, if any; this point's
+  // spike record.
+  double change_abs_mean = 0.0;
+  int32_t change_learnt = 0;
+  bool pending = false;
+  double pending_value_si = 0.0;
+  double pending_time_s = 0.0;
+  uint32_t held_back = 0;
+  uint32_t spikes = 0;
+  double first_spike_s = 0.0;  // time of the first and last dropped spike (valid when spikes > 0)
+  double last_spike_s = 0.0;
 };
 
 class Aligner {
@@ -107,8 +149,9 @@ class Aligner {
   void Reset(const Site& site, const DataQualityOptions& dq = {});
 
   FeedStatus Feed(const Reading& r);
-  // Marks the time of the latest tick (for counting late readings).
-  void SetTickTime(double t) { tick_time_s_ = t; }
+  // Marks the time of the latest tick (for counting late readings), and
+  // takes held-back readings older than spike_hold_max_s at t.
+  void SetTickTime(double t);
 
   const HeldValue& held(int point) const { return held_[point]; }
   // True when the point has a value of good or uncertain quality no older
@@ -137,6 +180,12 @@ class Aligner {
 
  private:
   uint8_t Frozen(int point, HeldValue& h, bool changed, double v) const;
+  // Takes a good value as the point's held value (frozen check, spike learning).
+  uint8_t Take(int point, HeldValue& h, double v, double t);
+  double SpikeThreshold(int point, const HeldValue& h) const;
+  bool SpikeReady(const HeldValue& h) const {
+    return dq_.spike_check && h.has_value && h.change_learnt >= dq_.spike_min_learnt;
+  }
 
   const Site* site_ = nullptr;
   std::vector<HeldValue> held_;
@@ -144,6 +193,7 @@ class Aligner {
   DataQualityOptions dq_;
   double tick_time_s_ = -1e300;
   AlignerCounters counters_;
+  int pending_count_ = 0;  // points with a held-back reading
 };
 
 }  // namespace holdfast

@@ -374,7 +374,7 @@ void Monitor::TickSegment(SegmentRuntime& s, double t, double dt) {
   for (int p : s.points) {
     const uint8_t d = aligner_.Dq(p, t);
     dq |= d;
-    if (d != 0) ++unusable;
+    if (d & ~kDqSpike) ++unusable;  // a dropped spike is only recorded
   }
   out.point_dq = dq;
   out.points_unusable = unusable;
@@ -805,7 +805,7 @@ void Monitor::UpdateAlarms(SegmentRuntime& s, int index, double t) {
     size_t used = 0;
     buf[0] = '\0';
     for (int p : s.points) {
-      const uint8_t d = aligner_.Dq(p, t);
+      const uint8_t d = aligner_.Dq(p, t) & ~kDqSpike;
       if (d == 0) continue;
       const char* reason = (d & kDqMissing) ? "missing" : (d & kDqStale) ? "stale" : (d & kDqFlatline) ? "frozen"
                            : (d & kDqBadQuality) ? "bad" : (d & kDqOutOfRange) ? "out_of_range" : "rate_of_change";
