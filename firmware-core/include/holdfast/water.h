@@ -575,6 +575,11 @@ class DistrictMonitor {
   // After any burst alarm: the first whole night that starts after this
   // time re-measures the step (no test), and the day path waits for it.
   double rebase_after_s_ = std::numeric_limits<double>::quiet_NaN();
+  // After a day alarm the re-measuring night also tests what it finds above
+  // the alarmed step by more than this (a second burst, or a day alarm that
+  // was not a burst followed by one that is); NaN after a night alarm.
+  double rebase_tolerance_m3_h_ = std::numeric_limits<double>::quiet_NaN();
+  double run_first_excess_ = 0.0;
   std::vector<double> scratch_;
   mutable std::vector<double> scratch2_;  // Median's work space
 };

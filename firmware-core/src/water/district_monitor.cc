@@ -198,8 +198,9 @@ bool DistrictMonitor::Init(int district, const DistrictMonitorOptions& options, 
   suspect_sum_ = low_sum_ = 0.0;
   prev_step_sigmas_ = prev_step_m3_h_ = 0.0;
   last_usable_end_s_ = kNaN;
-  rebase_after_s_ = kNaN;
-  scratch_.assign(static_cast<size_t>(std::max({kNightRing, 3 * o_.profile_days, 3 * o_.spread_days, 2 * bins_})), 0.0);
+  rebase_after_s_ = rebase_tolerance_m3_h_ = kNaN;
+  run_first_excess_ = 0.0;
+  scratch_.assign(static_cast<size_t>(std::max({kNightRing, 3 * o_.profile_days, 6 * o_.spread_days, 2 * bins_})), 0.0);
   scratch2_.assign(scratch_.size(), 0.0);
   return true;
 }
@@ -432,18 +433,23 @@ double DayPathThreshold(double false_alarm_interval_days, double blocks_per_day,
 
 void DistrictMonitor::UpdateBinSigma(int kind, int bin) {
   // 1.4826 x the median absolute prediction error of the bin and its two
-  // neighbours of the same kind of day (Hampel 1974). At least two of the
-  // three bins must have three errors or more.
-  int m = 0, formed = 0;
-  for (int k = -1; k <= 1; ++k) {
-    const int bb = kind * bins_ + ((bin + k) % bins_ + bins_) % bins_;
-    const int nb = err_n_[bb];
-    if (nb >= 3) ++formed;
-    const double* rb = &err_[static_cast<size_t>(bb) * o_.spread_days];
-    for (int i = 0; i < nb; ++i) scratch_[m++] = std::fabs(rb[i]);
-  }
+  // neighbours of the same kind of day (Hampel 1974). While that kind has
+  // fewer than kMinSpreadErrors, the other kind's errors of the same bins
+  // are pooled in (weekends come two days a week, and the MAD of a few
+  // values is often far too small).
+  constexpr int kMinSpreadErrors = 15;
+  int m = 0;
+  auto gather = [&](int kd) {
+    for (int k = -1; k <= 1; ++k) {
+      const int bb = kd * bins_ + ((bin + k) % bins_ + bins_) % bins_;
+      const double* rb = &err_[static_cast<size_t>(bb) * o_.spread_days];
+      for (int i = 0; i < err_n_[bb]; ++i) scratch_[m++] = std::fabs(rb[i]);
+    }
+  };
+  gather(kind);
+  if (m < kMinSpreadErrors) gather(1 - kind);
   const int pb = kind * bins_ + bin;
-  if (formed < 2 || m < 6) {
+  if (m < kMinSpreadErrors) {
     bin_sigma_[pb] = kNaN;
     return;
   }
@@ -451,8 +457,11 @@ void DistrictMonitor::UpdateBinSigma(int kind, int bin) {
 }
 
 void DistrictMonitor::UpdateReference() {
-  // k = day_step / (2 x the median spread over the formed bins of both
-  // kinds); h from the budget, recomputed when k has moved by 1 %.
+  // The reference: k = mu_ref / 2, mu_ref the target step in prewhitened
+  // spreads at the median spread over the formed bins of both kinds. The
+  // threshold in log-likelihood-ratio units is A = mu_ref h(k), h from the
+  // budget (the LLR CUSUM at a constant spread is mu times the plain one);
+  // recomputed when k has moved by 1 %.
   int m = 0;
   for (int i = 0; i < 2 * bins_; ++i)
     if (std::isfinite(bin_sigma_[i])) scratch_[m++] = bin_sigma_[i];
@@ -460,7 +469,7 @@ void DistrictMonitor::UpdateReference() {
   const double sigma_ref = Median(scratch_.data(), m);
   k_ = o_.day_step_m3_h / (2.0 * sigma_ref) * std::sqrt((1.0 - phi_) / (1.0 + phi_));
   if (!std::isfinite(h_for_k_) || std::fabs(k_ - h_for_k_) > 0.01 * h_for_k_) {
-    h_ = DayPathThreshold(o_.false_alarm_interval_days, static_cast<double>(bins_), k_);
+    h_ = 2.0 * k_ * DayPathThreshold(o_.false_alarm_interval_days, static_cast<double>(bins_), k_);
     h_for_k_ = k_;
   }
 }
@@ -473,7 +482,14 @@ void DistrictMonitor::DayPath(DistrictBlock& b, int kind, int bin, double t) {
     z_prev_ = kNaN;  // an incomplete block neither decides nor learns (the CUSUM holds)
     return;
   }
-  const double med = n >= o_.min_profile_days ? Median(ring, n) : kNaN;
+  // A kind of day whose bin has not formed yet (weekends come two days a
+  // week) borrows the other kind's median and spread: the residual (zone
+  // minus metered use) differs little between kinds, unlike the zone flow.
+  const int other = (1 - kind) * bins_ + bin;
+  double med = kNaN;
+  if (n >= o_.min_profile_days) med = Median(ring, n);
+  else if (prof_n_[other] >= o_.min_profile_days)
+    med = Median(&prof_[static_cast<size_t>(other) * o_.profile_days], prof_n_[other]);
   const bool waiting = std::isfinite(rebase_after_s_);
   if (std::isfinite(med) && !waiting) {
     // The prediction error enters the bin's spread (all of them, so that the
@@ -484,7 +500,7 @@ void DistrictMonitor::DayPath(DistrictBlock& b, int kind, int bin, double t) {
     err_head_[pb] = (err_head_[pb] + 1) % o_.spread_days;
     err_n_[pb] = std::min(err_n_[pb] + 1, o_.spread_days);
   }
-  const double sigma = bin_sigma_[pb];
+  const double sigma = std::isfinite(bin_sigma_[pb]) ? bin_sigma_[pb] : bin_sigma_[other];
   if (std::isfinite(med) && std::isfinite(sigma)) {
     b.sigma_m3_h = sigma;
     b.z = (b.residual_m3_h - med) / sigma;
@@ -504,8 +520,14 @@ void DistrictMonitor::DayPath(DistrictBlock& b, int kind, int bin, double t) {
   z_prev_ = have_z ? b.z : kNaN;
   const bool decide = have_z && std::isfinite(k_) && std::isfinite(h_);
   if (decide) {
-    // Page (1954) CUSUM in spreads: S = max(0, S + e - k).
-    const double s_new = std::max(0.0, cusum_ + e - k_);
+    // Page (1954) CUSUM on the log-likelihood ratio of "a step of
+    // day_step_m3_h" against "none" for this block: in prewhitened spreads
+    // the step shows as mu = day_step / sigma x sqrt((1 - phi) / (1 + phi)),
+    // and the LLR of e ~ N(mu, 1) against N(0, 1) is mu (e - mu / 2). A
+    // small deviation in a quiet hour (small spread) is evidence against a
+    // large step, not for it.
+    const double mu = o_.day_step_m3_h / sigma * std::sqrt((1.0 - phi_) / (1.0 + phi_));
+    const double s_new = std::max(0.0, cusum_ + mu * (e - 0.5 * mu));
     if (s_new > 0.0) {
       if (cusum_ <= 0.0) {
         run_start_s_ = b.start_s;
@@ -514,6 +536,7 @@ void DistrictMonitor::DayPath(DistrictBlock& b, int kind, int bin, double t) {
       }
       ++run_;
       rises_ = s_new > cusum_ ? rises_ + 1 : 0;
+      if (run_ == 1) run_first_excess_ = b.residual_m3_h - med;
       run_sum_ += b.residual_m3_h - med;
       run_var_ += sigma * sigma;
     } else {
@@ -524,8 +547,11 @@ void DistrictMonitor::DayPath(DistrictBlock& b, int kind, int bin, double t) {
       BurstReport r;
       r.time_s = t;
       r.path = BurstPath::kDay;
-      r.size_m3_h = run_sum_ / run_;  // the excursion's mean excess over the profile
-      r.size_ci95_m3_h = kZ95 * std::sqrt(run_var_) / run_;  // day blocks are correlated: a rough limit
+      // The size: the excursion's mean excess over the profile, without its
+      // first block (the burst usually starts inside it) when there are more.
+      const int nb = run_ > 1 ? run_ - 1 : run_;
+      r.size_m3_h = (run_ > 1 ? run_sum_ - run_first_excess_ : run_sum_) / nb;
+      r.size_ci95_m3_h = kZ95 * std::sqrt(run_var_ / run_) / std::sqrt(static_cast<double>(nb));  // blocks are correlated: a rough limit
       // The change: at the start of the excursion, within its first block
       // (or earlier, when the step started below k).
       r.change_s = run_start_s_;
@@ -538,6 +564,7 @@ void DistrictMonitor::DayPath(DistrictBlock& b, int kind, int bin, double t) {
       // of testing it again (and corrects both baselines); until then the
       // day path waits.
       rebase_after_s_ = run_start_s_;
+      rebase_tolerance_m3_h_ = std::max(r.size_ci95_m3_h, 0.5 * r.size_m3_h);
       return;  // the shifted profile already holds the new level
     }
   }
@@ -646,6 +673,31 @@ void DistrictMonitor::NightPath(DistrictNight* n, double t) {
       double sigma = 0.0;
       const double base = baseline(we, &sigma);
       const double corr = x - base;
+      const double allow = std::max({o_.night_alarm_sigmas * sigma, o_.min_step_m3_h, rebase_tolerance_m3_h_});
+      if (std::isfinite(rebase_tolerance_m3_h_) && corr > allow) {
+        // Tonight is above the day alarm's step by more than that step's
+        // uncertainty: a new step on top of it, alarmed as a night step.
+        BurstReport r;
+        r.time_s = t;
+        r.path = BurstPath::kNight;
+        r.size_m3_h = corr;
+        r.size_ci95_m3_h = kZ95 * sigma * std::sqrt(2.0);
+        r.change_s = 0.5 * (rebase_after_s_ + n->quiet_end_s);
+        r.change_ci_s = 0.5 * (n->quiet_end_s - rebase_after_s_);
+        r.statistic = corr / sigma;
+        r.threshold = allow / sigma;
+        Raise(r);
+        n->alarm = true;
+        n->baseline_m3_h = base;
+        n->sigma_m3_h = sigma;
+        n->step_m3_h = corr;
+        ShiftBaselines(corr);
+        rebase_after_s_ = n->quiet_end_s;
+        rebase_tolerance_m3_h_ = kNaN;
+        push(x, we, n->quiet_end_s);
+        last_usable_end_s_ = n->quiet_end_s;
+        return;
+      }
       for (int i = 0; i < nights_n_; ++i) night_x_[at(i)] += corr;
       for (int i = 0; i < 2 * bins_; ++i)
         for (int k = 0; k < prof_n_[i]; ++k) prof_[static_cast<size_t>(i) * o_.profile_days + k] += corr;
@@ -653,7 +705,7 @@ void DistrictMonitor::NightPath(DistrictNight* n, double t) {
       n->sigma_m3_h = sigma;
       n->step_m3_h = 0.0;
     }
-    rebase_after_s_ = kNaN;
+    rebase_after_s_ = rebase_tolerance_m3_h_ = kNaN;
     push(x, we, n->quiet_end_s);
     last_usable_end_s_ = n->quiet_end_s;
     return;
@@ -706,6 +758,7 @@ void DistrictMonitor::NightPath(DistrictNight* n, double t) {
       n->alarm = true;
       n->step_m3_h = best;
       rebase_after_s_ = n->quiet_end_s;
+      rebase_tolerance_m3_h_ = kNaN;
       cusum_ = 0.0;
     }
     return;
@@ -751,6 +804,7 @@ void DistrictMonitor::NightPath(DistrictNight* n, double t) {
     // (the burst may have started inside tonight's quiet hours, so tonight
     // saw only part of it) and the day path waits for it.
     rebase_after_s_ = n->quiet_end_s;
+    rebase_tolerance_m3_h_ = kNaN;
     push(x, we, n->quiet_end_s);
     last_usable_end_s_ = n->quiet_end_s;
     return;
