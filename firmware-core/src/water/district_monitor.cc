@@ -453,7 +453,13 @@ void DistrictMonitor::UpdateBinSigma(int kind, int bin) {
     bin_sigma_[pb] = kNaN;
     return;
   }
-  bin_sigma_[pb] = std::max(kMadToSigma * Median(scratch_.data(), m), o_.min_sigma_m3_h);
+  // Taken at its upper one-standard-error bound: the MAD's asymptotic
+  // efficiency at the normal is 37 % (Rousseeuw & Croux 1993; from memory),
+  // so sd(sigma_hat) / sigma = 1 / sqrt(2 x 0.367 m) = 1.167 / sqrt(m). A
+  // spread from few errors is otherwise often far too small, and the CUSUM
+  // takes it as known.
+  const double upper = 1.0 + 1.167 / std::sqrt(static_cast<double>(m));
+  bin_sigma_[pb] = std::max(kMadToSigma * Median(scratch_.data(), m) * upper, o_.min_sigma_m3_h);
 }
 
 void DistrictMonitor::UpdateReference() {
@@ -487,9 +493,13 @@ void DistrictMonitor::DayPath(DistrictBlock& b, int kind, int bin, double t) {
   // minus metered use) differs little between kinds, unlike the zone flow.
   const int other = (1 - kind) * bins_ + bin;
   double med = kNaN;
-  if (n >= o_.min_profile_days) med = Median(ring, n);
-  else if (prof_n_[other] >= o_.min_profile_days)
+  bool borrowed = false;
+  if (n >= o_.min_profile_days) {
+    med = Median(ring, n);
+  } else if (prof_n_[other] >= o_.min_profile_days) {
     med = Median(&prof_[static_cast<size_t>(other) * o_.profile_days], prof_n_[other]);
+    borrowed = true;
+  }
   const bool waiting = std::isfinite(rebase_after_s_);
   if (std::isfinite(med) && !waiting) {
     // The prediction error enters the bin's spread (all of them, so that the
@@ -500,7 +510,10 @@ void DistrictMonitor::DayPath(DistrictBlock& b, int kind, int bin, double t) {
     err_head_[pb] = (err_head_[pb] + 1) % o_.spread_days;
     err_n_[pb] = std::min(err_n_[pb] + 1, o_.spread_days);
   }
-  const double sigma = std::isfinite(bin_sigma_[pb]) ? bin_sigma_[pb] : bin_sigma_[other];
+  // A borrowed median is a worse prediction (the residual does differ
+  // between kinds: weekend use is higher and later): its spread is doubled.
+  const double sigma =
+      (std::isfinite(bin_sigma_[pb]) ? bin_sigma_[pb] : bin_sigma_[other]) * (borrowed ? 2.0 : 1.0);
   if (std::isfinite(med) && std::isfinite(sigma)) {
     b.sigma_m3_h = sigma;
     b.z = (b.residual_m3_h - med) / sigma;
