@@ -156,7 +156,7 @@ struct DistrictSpec {
   double quiet_end_h = 4.0;
   double night_alarm_sigmas = 5.0;
   double min_step_m3_h = 0.6;
-  double day_step_m3_h = 4.5;                       // the day path's target step
+  double day_step_m3_h = 5.0;                       // the day path's target step
   // Reservoir level smoothing before the balance (first-order time
   // constant, s; 0 = none).
   double level_smoothing_s = 0.0;

@@ -371,9 +371,9 @@ struct DistrictMonitorOptions {
   int min_profile_days = 3;
   int spread_days = 21;
   // Target step of the day path (the CUSUM's reference is half of it), m3/h
-  // of residual. The large burst is 5 m3/h at night pressure, a
-  // little less at daytime pressure.
-  double day_step_m3_h = 4.5;
+  // of residual: the large burst the evaluation asks to find within 6 h
+  // (5 m3/h at night pressure; a little less at daytime pressure).
+  double day_step_m3_h = 5.0;
   // Prior lag-one autocorrelation of z and its weight in blocks (the
   // learnt value takes over as blocks come), and its upper clamp.
   double day_phi_prior = 0.5;
