@@ -23,12 +23,16 @@
 //     autocorrelation about 0.85 on real district data), so the test works
 //     per night and needs no prewhitening. A suspected night is kept out of
 //     the baseline (frozen), so a burst is never learnt as normal.
-//   * Day path (fast). Each block against the time-of-day profile of its
-//     kind of day (median of recent same-kind days per bin). Only large
-//     steps held over several consecutive blocks alarm, because daytime
-//     demand moves by far more than a small burst, and slowly.
+//   * Day path (fast). An hourly CUSUM (Page 1954) of each block against the
+//     time-of-day profile of its kind of day (median of recent same-kind
+//     days per bin), in units of the bin's spread of prediction errors,
+//     prewhitened, on the log-likelihood ratio of a large step (day_step_m3_h)
+//     against none, with its threshold from a declared false-alarm budget
+//     (Siegmund 1985; see water.h). Daytime demand moves by far more than a
+//     small burst, so only large steps are the day path's business.
 // After an alarm the step is added to both baselines as the new normal, so
-// that a later burst is a new step.
+// that a later burst is a new step; the next whole night re-measures it,
+// and the day path waits for that night (one burst, one alarm).
 #include <algorithm>
 #include <cmath>
 #include <cstdint>
