@@ -581,7 +581,11 @@ void DistrictMonitor::DayPath(DistrictBlock& b, int kind, int bin, double t) {
       // of testing it again (and corrects both baselines); until then the
       // day path waits.
       rebase_after_s_ = run_start_s_;
-      rebase_tolerance_m3_h_ = std::max(r.size_ci95_m3_h, 0.5 * r.size_m3_h);
+      // A day estimate comes from a few hours at daytime pressure and is
+      // often well below the step (a 6.3 m3/h burst read as 3.7): only a
+      // night more than twice as far above the old level, or beyond the
+      // estimate's interval, has a second step in it.
+      rebase_tolerance_m3_h_ = std::max(r.size_ci95_m3_h, r.size_m3_h);
       return;  // the shifted profile already holds the new level
     }
   }
