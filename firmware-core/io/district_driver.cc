@@ -42,8 +42,8 @@ water::DistrictMonitorOptions MonitorOptionsFor(const DistrictSpec& d, const wat
   o.night_confirm_sigmas = std::min(o.night_confirm_sigmas, d.night_alarm_sigmas);
   o.suspect_sigmas = std::min(o.suspect_sigmas, o.night_confirm_sigmas);
   o.min_step_m3_h = d.min_step_m3_h;
-  o.day_min_m3_h = d.day_min_m3_h;
-  o.day_alarm_sigmas = d.day_alarm_sigmas;
+  o.day_step_m3_h = d.day_step_m3_h;
+  o.false_alarm_interval_days = d.false_alarm_interval_s / 86400.0;
   if (d.customer_meter_point >= 0 && d.customer_meter_reading != DistrictSpec::MeterReading::kSpot) {
     // Blocks as long as the meter interval (hourly totals: hourly blocks).
     const double iv = d.customer_meter_interval_s;

@@ -83,6 +83,9 @@ void PrintDistrict(const Site& site, const DistrictSpec& d) {
               d.reservoirs.size(), d.reservoirs.size() == 1 ? "" : "s", site.points[d.pressure_point].id.c_str(),
               d.households, d.non_households, d.service_connections, d.mains_length_km,
               d.customer_meter_point >= 0 ? "from aggregated smart meters" : "from the learnt demand profile");
+  std::printf("    burst detection: night step above %.3g robust spreads and %.3g m3/h; day path (hourly CUSUM) "
+              "target step %.3g m3/h, false-alarm budget one per %.0f days\n",
+              d.night_alarm_sigmas, d.min_step_m3_h, d.day_step_m3_h, d.false_alarm_interval_s / 86400.0);
   std::string why;
   water::UtcOffsetSchedule tz;
   if (!DistrictOffsets(d, &tz, &why)) std::printf("    warning: %s\n", why.c_str());

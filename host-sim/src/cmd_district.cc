@@ -94,7 +94,7 @@ int Run(const Args& a) {
       std::fprintf(stderr, "--balance: cannot write %s\n", a.balance_out.c_str());
       return 1;
     }
-    std::fprintf(balance, "start,local_start,weekend,ok,zone_m3_h,customer_m3_h,residual_m3_h,profile_m3_h,sigma_m3_h,z\n");
+    std::fprintf(balance, "start,local_start,weekend,ok,zone_m3_h,customer_m3_h,residual_m3_h,profile_m3_h,sigma_m3_h,z,cusum\n");
   }
   const water::UtcOffsetSchedule& tz = runner.offsets();
   sim::DistrictRunLog log;
@@ -111,10 +111,11 @@ int Run(const Args& a) {
     const double local = tz.Local(b.start_s);
     const int64_t day = water::LocalDayOf(local);
     const int wd = water::WeekdayOf(day);
-    std::fprintf(balance, "%s,%s,%d,%d,%s,%s,%s,%s,%s,%s\n", FormatIsoUtc(b.start_s, 0).c_str(),
+    std::fprintf(balance, "%s,%s,%d,%d,%s,%s,%s,%s,%s,%s,%s\n", FormatIsoUtc(b.start_s, 0).c_str(),
                  FormatIsoUtc(local, 0).substr(0, 16).c_str(), wd == 0 || wd == 6 ? 1 : 0, b.ok ? 1 : 0,
                  Fixed(b.zone_m3_h, 4).c_str(), Fixed(b.customer_m3_h, 4).c_str(), Fixed(b.residual_m3_h, 4).c_str(),
-                 Fixed(b.profile_m3_h, 4).c_str(), Fixed(b.sigma_m3_h, 4).c_str(), Fixed(b.z, 3).c_str());
+                 Fixed(b.profile_m3_h, 4).c_str(), Fixed(b.sigma_m3_h, 4).c_str(), Fixed(b.z, 3).c_str(),
+                 Fixed(b.cusum, 3).c_str());
   };
   CsvReadingSource source(&reader);
   log.run = RunDistrict(&runner, &source, o);

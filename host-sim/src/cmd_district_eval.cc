@@ -44,7 +44,7 @@ struct Family {
   std::string base_scenario;
   double duration_days = 60.0;
   std::string start = "2026-03-02T00:00:00Z";
-  std::vector<uint64_t> tuning, holdout;
+  std::vector<uint64_t> tuning, holdout, retired;  // retired: an earlier hold-out, already looked at
 };
 
 bool LoadFamily(const std::string& path, Family* f, std::string* why) {
@@ -65,6 +65,8 @@ bool LoadFamily(const std::string& path, Family* f, std::string* why) {
     f->start = doc.value("start", f->start);
     for (const auto& s : doc.at("tuning_seeds")) f->tuning.push_back(s.get<uint64_t>());
     for (const auto& s : doc.at("holdout_seeds")) f->holdout.push_back(s.get<uint64_t>());
+    if (doc.contains("retired_holdout_seeds"))
+      for (const auto& s : doc.at("retired_holdout_seeds")) f->retired.push_back(s.get<uint64_t>());
   } catch (const std::exception& e) {
     *why = path + ": " + e.what();
     return false;
@@ -157,8 +159,10 @@ int Run(const Args& a) {
     seeds = fam.tuning;
   } else if (a.set == "holdout") {
     seeds = fam.holdout;
+  } else if (a.set == "retired-holdout") {
+    seeds = fam.retired;
   } else {
-    std::fprintf(stderr, "--set: \"tuning\" or \"holdout\" (got \"%s\")\n", a.set.c_str());
+    std::fprintf(stderr, "--set: \"tuning\", \"holdout\" or \"retired-holdout\" (got \"%s\")\n", a.set.c_str());
     return 2;
   }
   const water::DistrictMonitorOptions mo;
@@ -296,7 +300,7 @@ void Register(CLI::App& app, int* exit_code) {
       "district-eval", "Evaluate burst alarms and night leakage on a family of generated districts (tuning or hold-out seeds)");
   cmd->add_option("--config", args->config, "Site config with a districts section (JSON)")->required()->check(CLI::ExistingFile);
   cmd->add_option("--family", args->family, "District family (JSON, \"holdfast-district-family/1\")")->required()->check(CLI::ExistingFile);
-  cmd->add_option("--set", args->set, "Seed set from the family file: tuning (default) or holdout");
+  cmd->add_option("--set", args->set, "Seed set from the family file: tuning (default), holdout, or retired-holdout (an earlier hold-out)");
   cmd->add_option("--seeds", args->seeds, "Explicit seeds instead of a set");
   cmd->add_flag("--no-meters", args->no_meters, "Ignore the district's customer meters");
   cmd->add_flag("--meter-bias", args->meter_bias, "Draw the meters' systematic errors from the site's accuracy (default: none)");

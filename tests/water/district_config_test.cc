@@ -45,7 +45,7 @@ json Base() {
       "mains_length_km": 18.5,
       "private_pipe_length_km": 1.2,
       "night_flow": {"utc_offset_h": 1, "window_start_h": 1, "window_end_h": 4, "averaging_s": 3600, "n1": 1.15},
-      "burst_detection": {"false_alarm_interval_days": 180}
+      "burst_detection": {"false_alarm_interval_days": 180, "day_step_m3_h": 4.2}
     }]
   })json");
 }
@@ -94,6 +94,7 @@ TEST(DistrictConfig, CompilesToSi) {
   EXPECT_DOUBLE_EQ(d.n1, 1.15);
   EXPECT_DOUBLE_EQ(d.household_night_use_l_h, 1.7);  // default (common practice, from memory)
   EXPECT_DOUBLE_EQ(d.false_alarm_interval_s, 180.0 * 86400.0);
+  EXPECT_DOUBLE_EQ(d.day_step_m3_h, 4.2);
 }
 
 TEST(DistrictConfig, SegmentsStillRequiredWithoutDistricts) {

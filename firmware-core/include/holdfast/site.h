@@ -150,14 +150,13 @@ struct DistrictSpec {
   double exceptional_night_use_m3_h = 0.0;
   double n1 = 1.0;
   // Burst detection (defaults in water.h, DistrictMonitorOptions).
-  double false_alarm_interval_s = 365.0 * 86400.0;  // kept for old configs; not used by the step detector
+  double false_alarm_interval_s = 3650.0 * 86400.0; // the day path's false-alarm budget
   int profile_learning_days = 7;                    // days in the time-of-day profile
   double quiet_start_h = 0.0;                       // quiet hours for the night step detector, local
   double quiet_end_h = 4.0;
   double night_alarm_sigmas = 5.0;
   double min_step_m3_h = 0.6;
-  double day_min_m3_h = 3.5;
-  double day_alarm_sigmas = 4.0;
+  double day_step_m3_h = 5.0;                       // the day path's target step
   // Reservoir level smoothing before the balance (first-order time
   // constant, s; 0 = none).
   double level_smoothing_s = 0.0;

@@ -24,6 +24,7 @@
 #pragma once
 
 #include <array>
+#include <cmath>
 #include <cstdint>
 #include <limits>
 #include <string>
@@ -343,17 +344,45 @@ struct DistrictMonitorOptions {
   double min_sigma_m3_h = 0.05;
   double min_sigma_fraction = 0.005;
 
-  // --- Day path (fast): each block against the time-of-day profile of its
-  // kind of day (median of the last `profile_days` values per bin; spread
-  // from their MAD, pooled over +-1 bin). Alarm when `day_blocks`
-  // consecutive blocks each exceed it by suspect_sigmas, and on average by
-  // day_alarm_sigmas and by day_min_m3_h. While a block is above
-  // suspect_sigmas it is not learnt.
+  // --- Day path (fast): an hourly CUSUM (Page 1954) on each block's
+  // residual against the time-of-day profile of its kind of day, in units
+  // of the bin's own spread.
+  //   profile: the median of the last `profile_days` same-kind values per
+  //     bin (learning stops while a step is suspected: the CUSUM above zero
+  //     or the block above suspect_sigmas);
+  //   spread: 1.4826 x the median absolute prediction error (the residual
+  //     minus the profile it was compared with, so the profile's own error
+  //     is included) of the last `spread_days` same-kind values of the bin
+  //     and its two neighbours (Hampel 1974);
+  //   z = (residual - profile) / spread; hourly prediction errors are
+  //     autocorrelated (the demand noise of the unmetered properties lasts
+  //     an hour or two; lag one about 0.6 on the generated districts), so
+  //     the CUSUM runs on the prewhitened e = (z - phi z_prev) / sqrt(1 -
+  //     phi^2) (AR(1), Box & Jenkins), phi learnt from the z series;
+  //     S = max(0, S + e - k), k half the target step as it shows in e:
+  //     k = day_step_m3_h / (2 x the median spread over the bins)
+  //         x sqrt((1 - phi) / (1 + phi));
+  //   threshold h from the declared budget: the one-sided in-control ARL
+  //     (Siegmund 1985's approximation, arl.h) equals
+  //     false_alarm_interval_days x blocks per day;
+  //   alarm when S > h and S has risen over the last day_persist_blocks
+  //     blocks (a single odd hour does not alarm).
   int profile_days = 7;
   int min_profile_days = 3;
-  int day_blocks = 3;
-  double day_alarm_sigmas = 4.0;
-  double day_min_m3_h = 3.5;
+  int spread_days = 21;
+  // Target step of the day path (the CUSUM's reference is half of it), m3/h
+  // of residual: the large burst the evaluation asks to find within 6 h
+  // (5 m3/h at night pressure; a little less at daytime pressure).
+  double day_step_m3_h = 5.0;
+  // Prior lag-one autocorrelation of z and its weight in blocks (the
+  // learnt value takes over as blocks come), and its upper clamp.
+  double day_phi_prior = 0.5;
+  double day_phi_prior_blocks = 48.0;
+  double day_phi_max = 0.9;
+  // Declared false-alarm budget of the day path: mean days between false
+  // day-path alarms on one district.
+  double false_alarm_interval_days = 3650.0;
+  int day_persist_blocks = 2;
 
   // Customer meters: how long after a block ends to wait for its customer
   // volume (interval totals arrive at the end of their interval), s.
@@ -386,8 +415,16 @@ struct DistrictBlock {
   double profile_m3_h = std::numeric_limits<double>::quiet_NaN();   // its bin's median
   double sigma_m3_h = std::numeric_limits<double>::quiet_NaN();
   double z = 0.0;               // (residual - profile) / sigma
+  double cusum = 0.0;           // the day path's statistic after this block, spreads
   std::string ToString() const;
 };
+
+// The day path's CUSUM threshold (spreads) for reference k: the h at which
+// Siegmund's (1985) approximation of the one-sided in-control ARL,
+//   ARL0 = (exp(2 k b) - 2 k b - 1) / (2 k^2),  b = h + 1.166,
+// equals false_alarm_interval_days x blocks_per_day blocks (arl.h,
+// CusumThresholdForArl without the Markov chain). NaN on bad input.
+double DayPathThreshold(double false_alarm_interval_days, double blocks_per_day, double k);
 
 enum class BurstPath : uint8_t { kNight, kDay, kLearning };
 const char* BurstPathName(BurstPath p);
@@ -448,6 +485,14 @@ class DistrictMonitor {
   // Profile median of a bin for weekdays (kind 0) or weekends (kind 1),
   // NaN until formed.
   double profile_m3_h(int kind, int bin) const;
+  // The day path's CUSUM now, its reference k and threshold h (spreads; NaN
+  // until the spreads have formed), and whether it waits for a night to
+  // re-measure a step after an alarm.
+  double day_cusum() const { return cusum_; }
+  double day_k() const { return k_; }
+  double day_phi() const { return phi_; }
+  double day_h() const { return h_; }
+  bool day_waiting() const { return std::isfinite(rebase_after_s_); }
 
  private:
   struct Pending {
@@ -501,9 +546,21 @@ class DistrictMonitor {
   // Profiles: [kind][bin][profile_days] ring of residuals, m3/h.
   std::vector<double> prof_;
   std::vector<int> prof_n_, prof_head_;
-  int run_ = 0;                  // consecutive day-path exceedances
-  double run_sum_ = 0.0, run_var_ = 0.0, run_z_ = 0.0, run_start_s_ = 0.0;
-  double day_suppress_until_s_ = -1e300;
+  // Prediction errors per [kind][bin] (ring of spread_days) and the
+  // spread they give (NaN until formed).
+  std::vector<double> err_;
+  std::vector<int> err_n_, err_head_;
+  std::vector<double> bin_sigma_;
+  // Day-path CUSUM: statistic, its reference and threshold (the threshold
+  // is recomputed only when k moves), the excursion's start, blocks, rises
+  // and summed excess.
+  double cusum_ = 0.0, k_ = kNaNd(), h_ = kNaNd(), h_for_k_ = kNaNd();
+  double phi_ = 0.0, phi_sxy_ = 0.0, phi_sxx_ = 0.0, z_prev_ = kNaNd();
+  double run_start_s_ = 0.0, run_sum_ = 0.0, run_var_ = 0.0;
+  int run_ = 0, rises_ = 0;
+  static constexpr double kNaNd() { return std::numeric_limits<double>::quiet_NaN(); }
+  void UpdateBinSigma(int kind, int bin);
+  void UpdateReference();
   // Nights: ring of usable nights (value, weekend), oldest first.
   NightAcc acc_;
   std::vector<double> night_x_;
@@ -515,7 +572,14 @@ class DistrictMonitor {
   double suspect_sum_ = 0.0, low_sum_ = 0.0;
   double prev_step_sigmas_ = 0.0, prev_step_m3_h_ = 0.0;
   double last_usable_end_s_ = std::numeric_limits<double>::quiet_NaN();
-  double rebase_after_s_ = std::numeric_limits<double>::quiet_NaN();  // after a day alarm
+  // After any burst alarm: the first whole night that starts after this
+  // time re-measures the step (no test), and the day path waits for it.
+  double rebase_after_s_ = std::numeric_limits<double>::quiet_NaN();
+  // After a day alarm the re-measuring night also tests what it finds above
+  // the alarmed step by more than this (a second burst, or a day alarm that
+  // was not a burst followed by one that is); NaN after a night alarm.
+  double rebase_tolerance_m3_h_ = std::numeric_limits<double>::quiet_NaN();
+  double run_first_excess_ = 0.0;
   std::vector<double> scratch_;
   mutable std::vector<double> scratch2_;  // Median's work space
 };

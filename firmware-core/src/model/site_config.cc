@@ -1615,7 +1615,7 @@ void Compiler::CompileDistrict(const json& d, const std::string& path, DistrictS
     const std::string p = path + "/burst_detection";
     CheckKeys(*bd, p,
               {"false_alarm_interval_days", "profile_learning_days", "quiet_start_h", "quiet_end_h",
-               "night_alarm_sigmas", "min_step_m3_h", "day_min_m3_h", "day_alarm_sigmas"});
+               "night_alarm_sigmas", "min_step_m3_h", "day_step_m3_h"});
     const bool qs = NonNegative(*bd, "quiet_start_h", p, Need::kOptional, &out->quiet_start_h) != Got::kBad;
     const bool qe = Positive(*bd, "quiet_end_h", p, Need::kOptional, &out->quiet_end_h) != Got::kBad;
     if (qs && qe) {
@@ -1627,13 +1627,15 @@ void Compiler::CompileDistrict(const json& d, const std::string& path, DistrictS
     }
     Positive(*bd, "night_alarm_sigmas", p, Need::kOptional, &out->night_alarm_sigmas);
     NonNegative(*bd, "min_step_m3_h", p, Need::kOptional, &out->min_step_m3_h);
-    NonNegative(*bd, "day_min_m3_h", p, Need::kOptional, &out->day_min_m3_h);
-    Positive(*bd, "day_alarm_sigmas", p, Need::kOptional, &out->day_alarm_sigmas);
+    if (Positive(*bd, "day_step_m3_h", p, Need::kOptional, &out->day_step_m3_h) == Got::kOk &&
+        out->day_step_m3_h > 1000.0)
+      Add(p + "/day_step_m3_h", "must be at most 1000 m3/h (got " + Num(out->day_step_m3_h) + ")");
     if (out->night_alarm_sigmas < 3.0)
       Add(p + "/night_alarm_sigmas", "must be at least 3 (got " + Num(out->night_alarm_sigmas) + ")");
-    double days = 365.0;
+    double days = 3650.0;
     if (Positive(*bd, "false_alarm_interval_days", p, Need::kOptional, &days) == Got::kOk) {
-      if (days < 1.0) Add(p + "/false_alarm_interval_days", "must be at least 1 day (got " + Num(days) + ")");
+      if (days < 1.0 || days > 1e6)
+        Add(p + "/false_alarm_interval_days", "must be 1 to 1e6 days (got " + Num(days) + ")");
       else out->false_alarm_interval_s = days * 86400.0;
     }
     Integer(*bd, "profile_learning_days", p, Need::kOptional, 2, 60, &out->profile_learning_days);

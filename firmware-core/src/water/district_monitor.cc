@@ -23,12 +23,16 @@
 //     autocorrelation about 0.85 on real district data), so the test works
 //     per night and needs no prewhitening. A suspected night is kept out of
 //     the baseline (frozen), so a burst is never learnt as normal.
-//   * Day path (fast). Each block against the time-of-day profile of its
-//     kind of day (median of recent same-kind days per bin). Only large
-//     steps held over several consecutive blocks alarm, because daytime
-//     demand moves by far more than a small burst, and slowly.
+//   * Day path (fast). An hourly CUSUM (Page 1954) of each block against the
+//     time-of-day profile of its kind of day (median of recent same-kind
+//     days per bin), in units of the bin's spread of prediction errors,
+//     prewhitened, on the log-likelihood ratio of a large step (day_step_m3_h)
+//     against none, with its threshold from a declared false-alarm budget
+//     (Siegmund 1985; see water.h). Daytime demand moves by far more than a
+//     small burst, so only large steps are the day path's business.
 // After an alarm the step is added to both baselines as the new normal, so
-// that a later burst is a new step.
+// that a later burst is a new step; the next whole night re-measures it,
+// and the day path waits for that night (one burst, one alarm).
 #include <algorithm>
 #include <cmath>
 #include <cstdint>
@@ -36,6 +40,7 @@
 #include <limits>
 #include <string>
 
+#include "holdfast/arl.h"
 #include "holdfast/water.h"
 
 namespace holdfast::water {
@@ -130,8 +135,14 @@ bool DistrictMonitorOptions::IsValid(std::string* why) const {
   if (accept_nights < 1 || accept_nights > 30) return fail("accept nights must be 1..30");
   if (profile_days < 3 || profile_days > 28) return fail("profile days must be 3..28");
   if (min_profile_days < 2 || min_profile_days > profile_days) return fail("min profile days must be 2..profile days");
-  if (day_blocks < 1 || day_blocks > 24) return fail("day blocks must be 1..24");
-  if (!(day_alarm_sigmas > 0.0 && day_min_m3_h >= 0.0)) return fail("day thresholds must be positive");
+  if (spread_days < 3 || spread_days > 56) return fail("spread days must be 3..56");
+  if (!(day_step_m3_h > 0.0 && day_step_m3_h <= 1000.0)) return fail("day step must be in (0, 1000] m3/h");
+  if (!(false_alarm_interval_days >= 1.0 && false_alarm_interval_days <= 1e6))
+    return fail("false-alarm interval must be 1..1e6 days");
+  if (day_persist_blocks < 1 || day_persist_blocks > 24) return fail("day persistence must be 1..24 blocks");
+  if (!(day_phi_max >= 0.0 && day_phi_max < 1.0 && day_phi_prior >= 0.0 && day_phi_prior <= day_phi_max &&
+        day_phi_prior_blocks >= 0.0))
+    return fail("day phi: 0 <= prior <= max < 1, prior blocks >= 0");
   if (!(customer_wait_s >= 0.0 && customer_wait_s <= (kPendingBlocks - 2) * block_s))
     return fail("customer wait must be 0.." + std::to_string(static_cast<int>((kPendingBlocks - 2) * block_s)) + " s");
   if (!(min_valid_fraction > 0.0 && min_valid_fraction <= 1.0)) return fail("min valid fraction must be in (0, 1]");
@@ -170,9 +181,17 @@ bool DistrictMonitor::Init(int district, const DistrictMonitorOptions& options, 
   prof_.assign(static_cast<size_t>(2 * bins_ * o_.profile_days), kNaN);
   prof_n_.assign(static_cast<size_t>(2 * bins_), 0);
   prof_head_.assign(static_cast<size_t>(2 * bins_), 0);
-  run_ = 0;
-  run_sum_ = run_var_ = run_z_ = run_start_s_ = 0.0;
-  day_suppress_until_s_ = -1e300;
+  err_.assign(static_cast<size_t>(2 * bins_ * o_.spread_days), kNaN);
+  err_n_.assign(static_cast<size_t>(2 * bins_), 0);
+  err_head_.assign(static_cast<size_t>(2 * bins_), 0);
+  bin_sigma_.assign(static_cast<size_t>(2 * bins_), kNaN);
+  cusum_ = 0.0;
+  k_ = h_ = h_for_k_ = z_prev_ = kNaN;
+  phi_ = o_.day_phi_prior;
+  phi_sxy_ = o_.day_phi_prior * o_.day_phi_prior_blocks;
+  phi_sxx_ = o_.day_phi_prior_blocks;
+  run_start_s_ = run_sum_ = run_var_ = 0.0;
+  run_ = rises_ = 0;
   acc_ = NightAcc{};
   night_x_.assign(kNightRing, 0.0);
   night_we_.assign(kNightRing, 0);
@@ -183,8 +202,9 @@ bool DistrictMonitor::Init(int district, const DistrictMonitorOptions& options, 
   suspect_sum_ = low_sum_ = 0.0;
   prev_step_sigmas_ = prev_step_m3_h_ = 0.0;
   last_usable_end_s_ = kNaN;
-  rebase_after_s_ = kNaN;
-  scratch_.assign(static_cast<size_t>(std::max(kNightRing, 3 * o_.profile_days)), 0.0);
+  rebase_after_s_ = rebase_tolerance_m3_h_ = kNaN;
+  run_first_excess_ = 0.0;
+  scratch_.assign(static_cast<size_t>(std::max({kNightRing, 3 * o_.profile_days, 6 * o_.spread_days, 2 * bins_})), 0.0);
   scratch2_.assign(scratch_.size(), 0.0);
   return true;
 }
@@ -367,6 +387,7 @@ void DistrictMonitor::Decide(const Pending& p, double t) {
   const int kind = Weekend(day) ? 1 : 0;
   DayPath(b, kind, bin, t);
   b.profile_m3_h = profile_m3_h(kind, bin);
+  b.cusum = cusum_;
   if (new_blocks_ < kPendingBlocks) done_blocks_[new_blocks_++] = b;
 
   // Nights: the night a quiet block belongs to is the date its quiet hours end on.
@@ -409,77 +430,177 @@ void DistrictMonitor::Decide(const Pending& p, double t) {
 
 // --- Day path -------------------------------------------------------------------
 
+double DayPathThreshold(double false_alarm_interval_days, double blocks_per_day, double k) {
+  if (!(false_alarm_interval_days > 0.0 && blocks_per_day > 0.0 && k > 0.0)) return kNaN;
+  return CusumThresholdForArl(false_alarm_interval_days * blocks_per_day, k, /*markov=*/false);
+}
+
+void DistrictMonitor::UpdateBinSigma(int kind, int bin) {
+  // 1.4826 x the median absolute prediction error of the bin and its two
+  // neighbours of the same kind of day (Hampel 1974). While that kind has
+  // fewer than kMinSpreadErrors, the other kind's errors of the same bins
+  // are pooled in (weekends come two days a week, and the MAD of a few
+  // values is often far too small).
+  constexpr int kMinSpreadErrors = 15;
+  int m = 0;
+  auto gather = [&](int kd) {
+    for (int k = -1; k <= 1; ++k) {
+      const int bb = kd * bins_ + ((bin + k) % bins_ + bins_) % bins_;
+      const double* rb = &err_[static_cast<size_t>(bb) * o_.spread_days];
+      for (int i = 0; i < err_n_[bb]; ++i) scratch_[m++] = std::fabs(rb[i]);
+    }
+  };
+  gather(kind);
+  if (m < kMinSpreadErrors) gather(1 - kind);
+  const int pb = kind * bins_ + bin;
+  if (m < kMinSpreadErrors) {
+    bin_sigma_[pb] = kNaN;
+    return;
+  }
+  // Taken at its upper one-standard-error bound: the MAD's asymptotic
+  // efficiency at the normal is 37 % (Rousseeuw & Croux 1993; from memory),
+  // so sd(sigma_hat) / sigma = 1 / sqrt(2 x 0.367 m) = 1.167 / sqrt(m). A
+  // spread from few errors is otherwise often far too small, and the CUSUM
+  // takes it as known.
+  const double upper = 1.0 + 1.167 / std::sqrt(static_cast<double>(m));
+  bin_sigma_[pb] = std::max(kMadToSigma * Median(scratch_.data(), m) * upper, o_.min_sigma_m3_h);
+}
+
+void DistrictMonitor::UpdateReference() {
+  // The reference: k = mu_ref / 2, mu_ref the target step in prewhitened
+  // spreads at the median spread over the formed bins of both kinds. The
+  // threshold in log-likelihood-ratio units is A = mu_ref h(k), h from the
+  // budget (the LLR CUSUM at a constant spread is mu times the plain one);
+  // recomputed when k has moved by 1 %.
+  int m = 0;
+  for (int i = 0; i < 2 * bins_; ++i)
+    if (std::isfinite(bin_sigma_[i])) scratch_[m++] = bin_sigma_[i];
+  if (m < bins_ / 2) return;  // the spreads have not formed over half a day yet
+  const double sigma_ref = Median(scratch_.data(), m);
+  k_ = o_.day_step_m3_h / (2.0 * sigma_ref) * std::sqrt((1.0 - phi_) / (1.0 + phi_));
+  if (!std::isfinite(h_for_k_) || std::fabs(k_ - h_for_k_) > 0.01 * h_for_k_) {
+    h_ = 2.0 * k_ * DayPathThreshold(o_.false_alarm_interval_days, static_cast<double>(bins_), k_);
+    h_for_k_ = k_;
+  }
+}
+
 void DistrictMonitor::DayPath(DistrictBlock& b, int kind, int bin, double t) {
   const int pb = kind * bins_ + bin;
   double* ring = &prof_[static_cast<size_t>(pb) * o_.profile_days];
   const int n = prof_n_[pb];
   if (!b.ok) {
-    run_ = 0;
+    z_prev_ = kNaN;  // an incomplete block neither decides nor learns (the CUSUM holds)
     return;
   }
-  double med = kNaN, sigma = kNaN;
+  // A kind of day whose bin has not formed yet (weekends come two days a
+  // week) borrows the other kind's median and spread: the residual (zone
+  // minus metered use) differs little between kinds, unlike the zone flow.
+  const int other = (1 - kind) * bins_ + bin;
+  double med = kNaN;
+  bool borrowed = false;
   if (n >= o_.min_profile_days) {
     med = Median(ring, n);
-    // Spread: MAD about each bin's own median, pooled over this bin and its
-    // neighbours of the same kind of day.
-    int m = 0;
-    for (int k = -1; k <= 1; ++k) {
-      const int bb = kind * bins_ + ((bin + k) % bins_ + bins_) % bins_;
-      const int nb = prof_n_[bb];
-      if (nb < o_.min_profile_days) continue;
-      const double* rb = &prof_[static_cast<size_t>(bb) * o_.profile_days];
-      const double mb = Median(rb, nb);
-      for (int i = 0; i < nb; ++i) scratch_[m++] = std::fabs(rb[i] - mb);
-    }
-    const double mad = Median(scratch_.data(), m);
-    // Few days: the MAD of n values about their own median understates the
-    // spread; the factor n/(n-1) is a first-order correction (common practice).
-    const double nn = static_cast<double>(std::min(n, o_.profile_days));
-    sigma = std::max({kMadToSigma * mad * nn / (nn - 1.0), o_.min_sigma_m3_h, o_.min_sigma_fraction * std::fabs(med)});
+  } else if (prof_n_[other] >= o_.min_profile_days) {
+    med = Median(&prof_[static_cast<size_t>(other) * o_.profile_days], prof_n_[other]);
+    borrowed = true;
+  }
+  const bool waiting = std::isfinite(rebase_after_s_);
+  if (std::isfinite(med) && !waiting) {
+    // The prediction error enters the bin's spread (all of them, so that the
+    // spread is not truncated; the median absolute error ignores a burst's
+    // few hours).
+    double* er = &err_[static_cast<size_t>(pb) * o_.spread_days];
+    er[err_head_[pb]] = b.residual_m3_h - med;
+    err_head_[pb] = (err_head_[pb] + 1) % o_.spread_days;
+    err_n_[pb] = std::min(err_n_[pb] + 1, o_.spread_days);
+  }
+  // A borrowed median is a worse prediction (the residual does differ
+  // between kinds: weekend use is higher and later): its spread is doubled.
+  const double sigma =
+      (std::isfinite(bin_sigma_[pb]) ? bin_sigma_[pb] : bin_sigma_[other]) * (borrowed ? 2.0 : 1.0);
+  if (std::isfinite(med) && std::isfinite(sigma)) {
     b.sigma_m3_h = sigma;
     b.z = (b.residual_m3_h - med) / sigma;
   }
-  const bool suspect = std::isfinite(sigma) && b.z > o_.suspect_sigmas;
-  // A run of blocks each above suspect_sigmas; the alarm needs day_blocks of
-  // them whose mean is above day_alarm_sigmas and day_min_m3_h. Not while a
-  // day alarm waits for its night to re-measure the step.
-  const bool exceed = suspect && b.start_s >= day_suppress_until_s_ && !std::isfinite(rebase_after_s_);
-  if (exceed) {
-    if (run_ == 0) {
-      run_start_s_ = b.start_s;
-      run_sum_ = run_var_ = run_z_ = 0.0;
+  const bool have_z = std::isfinite(med) && std::isfinite(sigma) && !waiting;
+  // Prewhitening (AR(1)): e = (z - phi z_prev) / sqrt(1 - phi^2), plain z
+  // after a gap. phi from the z series (lag-one sums, with the prior).
+  double e = b.z;
+  if (have_z && std::isfinite(z_prev_)) {
+    e = (b.z - phi_ * z_prev_) / std::sqrt(1.0 - phi_ * phi_);
+    // Clipped at 4 spreads, so that a burst's few hours do not inflate phi.
+    const double zc = std::clamp(b.z, -4.0, 4.0), zp = std::clamp(z_prev_, -4.0, 4.0);
+    phi_sxy_ += zc * zp;
+    phi_sxx_ += zp * zp;
+    phi_ = std::clamp(phi_sxy_ / phi_sxx_, 0.0, o_.day_phi_max);
+  }
+  z_prev_ = have_z ? b.z : kNaN;
+  const bool decide = have_z && std::isfinite(k_) && std::isfinite(h_);
+  if (decide) {
+    // Page (1954) CUSUM on the log-likelihood ratio of "a step of
+    // day_step_m3_h" against "none" for this block: in prewhitened spreads
+    // the step shows as mu = day_step / sigma x sqrt((1 - phi) / (1 + phi)),
+    // and the LLR of e ~ N(mu, 1) against N(0, 1) is mu (e - mu / 2). A
+    // small deviation in a quiet hour (small spread) is evidence against a
+    // large step, not for it.
+    const double mu = o_.day_step_m3_h / sigma * std::sqrt((1.0 - phi_) / (1.0 + phi_));
+    const double s_new = std::max(0.0, cusum_ + mu * (e - 0.5 * mu));
+    if (s_new > 0.0) {
+      if (cusum_ <= 0.0) {
+        run_start_s_ = b.start_s;
+        run_ = rises_ = 0;
+        run_sum_ = run_var_ = 0.0;
+      }
+      ++run_;
+      rises_ = s_new > cusum_ ? rises_ + 1 : 0;
+      if (run_ == 1) run_first_excess_ = b.residual_m3_h - med;
+      run_sum_ += b.residual_m3_h - med;
+      run_var_ += sigma * sigma;
+    } else {
+      run_ = rises_ = 0;
     }
-    ++run_;
-    run_sum_ += b.residual_m3_h - med;
-    run_var_ += sigma * sigma;
-    run_z_ += b.z;
-    if (run_ >= o_.day_blocks && run_z_ / run_ > o_.day_alarm_sigmas && run_sum_ / run_ > o_.day_min_m3_h) {
+    cusum_ = s_new;
+    if (cusum_ > h_ && rises_ >= o_.day_persist_blocks) {
       BurstReport r;
       r.time_s = t;
       r.path = BurstPath::kDay;
-      r.size_m3_h = run_sum_ / run_;
-      r.size_ci95_m3_h = kZ95 * std::sqrt(run_var_) / run_;  // day blocks are correlated: a rough limit
+      // The size: the excursion's mean excess over the profile, without its
+      // first block (the burst usually starts inside it) when there are more.
+      const int nb = run_ > 1 ? run_ - 1 : run_;
+      r.size_m3_h = (run_ > 1 ? run_sum_ - run_first_excess_ : run_sum_) / nb;
+      r.size_ci95_m3_h = kZ95 * std::sqrt(run_var_ / run_) / std::sqrt(static_cast<double>(nb));  // blocks are correlated: a rough limit
+      // The change: at the start of the excursion, within its first block
+      // (or earlier, when the step started below k).
       r.change_s = run_start_s_;
       r.change_ci_s = o_.block_s;
-      r.statistic = run_z_ / run_;
-      r.threshold = o_.day_alarm_sigmas;
+      r.statistic = cusum_;
+      r.threshold = h_;
       Raise(r);
       ShiftBaselines(r.size_m3_h);
       // The first whole night after the change re-measures the step instead
-      // of testing it again (and corrects both baselines).
+      // of testing it again (and corrects both baselines); until then the
+      // day path waits.
       rebase_after_s_ = run_start_s_;
-      run_ = 0;
+      // A day estimate comes from a few hours at daytime pressure and is
+      // often well below the step (a 6.3 m3/h burst read as 3.7): only a
+      // night more than twice as far above the old level, or beyond the
+      // estimate's interval, has a second step in it.
+      rebase_tolerance_m3_h_ = std::max(r.size_ci95_m3_h, r.size_m3_h);
       return;  // the shifted profile already holds the new level
     }
-  } else {
-    run_ = 0;
   }
-  // Learn the bin unless the block is suspect (frozen) or a step is pending
-  // at night.
-  if (suspect || suspect_run_ > 0) return;
-  ring[prof_head_[pb]] = b.residual_m3_h;
-  prof_head_[pb] = (prof_head_[pb] + 1) % o_.profile_days;
-  prof_n_[pb] = std::min(n + 1, o_.profile_days);
+  // Learn the bin unless a step is suspected: the CUSUM above zero, the
+  // block above suspect_sigmas, or a night step pending (frozen).
+  const bool suspect = (std::isfinite(b.sigma_m3_h) && b.z > o_.suspect_sigmas) || cusum_ > 0.0 || suspect_run_ > 0;
+  if (!suspect) {
+    ring[prof_head_[pb]] = b.residual_m3_h;
+    prof_head_[pb] = (prof_head_[pb] + 1) % o_.profile_days;
+    prof_n_[pb] = std::min(n + 1, o_.profile_days);
+  }
+  UpdateBinSigma(kind, bin);
+  UpdateBinSigma(kind, (bin + 1) % bins_);
+  UpdateBinSigma(kind, (bin + bins_ - 1) % bins_);
+  UpdateReference();
 }
 
 void DistrictMonitor::ShiftBaselines(double step) {
@@ -490,6 +611,8 @@ void DistrictMonitor::ShiftBaselines(double step) {
   suspect_run_ = low_run_ = 0;
   suspect_sum_ = low_sum_ = 0.0;
   prev_step_sigmas_ = 0.0;
+  cusum_ = 0.0;
+  run_ = rises_ = 0;
 }
 
 void DistrictMonitor::Raise(const BurstReport& r) {
@@ -571,6 +694,31 @@ void DistrictMonitor::NightPath(DistrictNight* n, double t) {
       double sigma = 0.0;
       const double base = baseline(we, &sigma);
       const double corr = x - base;
+      const double allow = std::max({o_.night_alarm_sigmas * sigma, o_.min_step_m3_h, rebase_tolerance_m3_h_});
+      if (std::isfinite(rebase_tolerance_m3_h_) && corr > allow) {
+        // Tonight is above the day alarm's step by more than that step's
+        // uncertainty: a new step on top of it, alarmed as a night step.
+        BurstReport r;
+        r.time_s = t;
+        r.path = BurstPath::kNight;
+        r.size_m3_h = corr;
+        r.size_ci95_m3_h = kZ95 * sigma * std::sqrt(2.0);
+        r.change_s = 0.5 * (rebase_after_s_ + n->quiet_end_s);
+        r.change_ci_s = 0.5 * (n->quiet_end_s - rebase_after_s_);
+        r.statistic = corr / sigma;
+        r.threshold = allow / sigma;
+        Raise(r);
+        n->alarm = true;
+        n->baseline_m3_h = base;
+        n->sigma_m3_h = sigma;
+        n->step_m3_h = corr;
+        ShiftBaselines(corr);
+        rebase_after_s_ = n->quiet_end_s;
+        rebase_tolerance_m3_h_ = kNaN;
+        push(x, we, n->quiet_end_s);
+        last_usable_end_s_ = n->quiet_end_s;
+        return;
+      }
       for (int i = 0; i < nights_n_; ++i) night_x_[at(i)] += corr;
       for (int i = 0; i < 2 * bins_; ++i)
         for (int k = 0; k < prof_n_[i]; ++k) prof_[static_cast<size_t>(i) * o_.profile_days + k] += corr;
@@ -578,7 +726,7 @@ void DistrictMonitor::NightPath(DistrictNight* n, double t) {
       n->sigma_m3_h = sigma;
       n->step_m3_h = 0.0;
     }
-    rebase_after_s_ = kNaN;
+    rebase_after_s_ = rebase_tolerance_m3_h_ = kNaN;
     push(x, we, n->quiet_end_s);
     last_usable_end_s_ = n->quiet_end_s;
     return;
@@ -630,6 +778,9 @@ void DistrictMonitor::NightPath(DistrictNight* n, double t) {
       Raise(r);
       n->alarm = true;
       n->step_m3_h = best;
+      rebase_after_s_ = n->quiet_end_s;
+      rebase_tolerance_m3_h_ = kNaN;
+      cusum_ = 0.0;
     }
     return;
   }
@@ -670,8 +821,11 @@ void DistrictMonitor::NightPath(DistrictNight* n, double t) {
     n->alarm = true;
     // The step becomes the new normal: the baseline nights move up by it.
     ShiftBaselines(r.size_m3_h);
-    day_suppress_until_s_ = n->quiet_end_s;
-    run_ = 0;
+    // One burst, one alarm: the next whole night re-measures the step
+    // (the burst may have started inside tonight's quiet hours, so tonight
+    // saw only part of it) and the day path waits for it.
+    rebase_after_s_ = n->quiet_end_s;
+    rebase_tolerance_m3_h_ = kNaN;
     push(x, we, n->quiet_end_s);
     last_usable_end_s_ = n->quiet_end_s;
     return;
