@@ -300,6 +300,62 @@ TEST(RuptureDetector, SloshingBlockedInLineIsNotARupture) {
   EXPECT_FALSE(raised) << r.det.status().ToString();
 }
 
+// The inlet's own operator's change (a pump slowing: ds_in = 0, dg_in =
+// -2 x), its reflection from a flow-controlled outlet (passive there: |dg| =
+// |ds|) returning after 2 L / a and moving s_in as an arriving leak's wave
+// would, with the model error of the balance agreeing: the inlet is not a
+// passive end over the far end's span (|dg| - |ds| beyond the quiet
+// margin), so it does not lead a one-end rupture. Signals are written as
+// the invariants (m = (s + g) / 2, P = (g - s) / 2B; hand arithmetic).
+TEST(RuptureDetector, ReturningReflectionOfTheInletsOwnChangeIsNotARupture) {
+  Rig r = MakeRig();
+  const double travel_s = 35.0;  // L / a on the 40 km rig, about
+  bool raised = false, inlet_would_lead = false;
+  for (int k = 0; k < 420; ++k) {
+    double ds_in = 0.0, dg_in = 0.0, ds_out = 0.0, dg_out = 0.0;
+    if (k >= 240) dg_in = -19.0;                       // the operator's change, x = 9.5 kg/s
+    if (k >= 240 + travel_s) { ds_out = 9.5; dg_out = -9.5; }  // at the flow-held outlet
+    if (k >= 240 + 2 * travel_s) { ds_in = 12.0; dg_in -= 12.0; }  // back at the pump, reflected
+    RuptureInput in;
+    in.inflow_kg_s = 200.0 + 0.5 * (ds_in + dg_in);
+    in.p_inlet_pa = 60e5 + (dg_in - ds_in) / (2.0 * r.b);
+    in.outflow_kg_s = 180.0 - 0.5 * (ds_out + dg_out);
+    in.p_outlet_pa = 5e5 + (dg_out - ds_out) / (2.0 * r.det.b_outlet_m_s());
+    in.lateral_out_kg_s = 20.0;
+    in.residual_kg_s = k >= 240 ? 12.0 : 0.0;  // model error in the settling line
+    const RuptureStatus& st = r.det.Step(k, in);
+    raised = raised || st.rupture;
+    // What the one-end rule without the passive-leader check raised:
+    inlet_would_lead = inlet_would_lead || (st.wave_in_kg_s >= 10.0 && st.far_out_kg_s <= 10.0 &&
+                                            st.far_in_kg_s > 10.0);
+  }
+  EXPECT_TRUE(inlet_would_lead);
+  EXPECT_FALSE(raised);
+}
+
+// A blocked-in line (no flow at either end) whose ends then show what a
+// leak would (a restart opening its valves, the line settling after a
+// shut-in): no rupture; the shut-in watch owns a leak in a standing line.
+// The same change on the flowing line is raised (LeakIsSeenWhateverTheEndsDo).
+TEST(RuptureDetector, StandingLineRaisesNoRupture) {
+  Rig r = MakeRig();
+  bool raised = false;
+  const double q = 30.0;  // kg/s, both ends hear q / 2 each way
+  for (int k = 0; k < 300; ++k) {
+    const bool on = k >= 240;
+    RuptureInput in;
+    in.inflow_kg_s = on ? 0.5 * q : 0.0;
+    in.p_inlet_pa = 30e5 - (on ? 0.5 * q / r.b : 0.0);
+    in.outflow_kg_s = on ? -0.5 * q : 0.0;
+    in.p_outlet_pa = 30e5 - (on ? 0.5 * q / r.det.b_outlet_m_s() : 0.0);
+    in.residual_kg_s = on ? q : 0.0;
+    const RuptureStatus& st = r.det.Step(k, in);
+    raised = raised || st.rupture;
+    if (k == 299) EXPECT_TRUE(st.standing) << st.ToString();
+  }
+  EXPECT_FALSE(raised);
+}
+
 TEST(RuptureOptions, EachFailureSaysWhy) {
   std::string why;
   RuptureOptions o;

@@ -76,6 +76,16 @@
 // of the threshold on a long line with few transmitters, so each of those
 // thirds must also exceed 6 of its learnt in-control sigmas (learnt over the
 // first half hour after a start, while this path stays off).
+// The end that leads must itself be passive over the far end's span (|dg| -
+// |ds| within the quiet margin, as the far end): the reflection of an
+// operator's change made at that end (a pump slowing on its ramp) returns to
+// it after 2 L / a and moves its own s as an arriving wave would.
+// A standing line (both end flows within the quiet margin at the reference or
+// at the look-back's start, the inlet's alone with a tank inside the segment,
+// whose outlet meters measure what leaves the tank: blocked in, or a restart
+// from it) raises no
+// rupture: its valves opening and the line settling after a shut-in send the
+// waves a leak would, and a leak in it is the shut-in watch's (decision.h).
 #pragma once
 
 #include <string>
@@ -125,6 +135,7 @@ struct RuptureStatus {
   double metered_before_kg_s = 0.0;  // move of the metered shortfall over the same
   double far_in_kg_s = 0.0;      // inlet's own change |dg_in| - |ds_in| over the extended look-back
   double far_out_kg_s = 0.0;     // outlet's likewise (tank inside: B x the outlet pressure rise)
+  bool standing = false;         // both end flows within the quiet margin at the reference or the look-back's start
   int one_end = 0;               // 0: both ends (or none); 1: raised from the inlet alone; 2: the outlet alone;
                                  // 3: from the line's own imbalance before either end hears it
   // True when the look-back shows a leak-like change at both ends (the wave
@@ -161,6 +172,7 @@ class RuptureDetector {
   struct Sample {
     double t = 0.0, s_in = 0.0, s_out = 0.0, lat = 0.0, net = 0.0, p_in = 0.0, p_out = 0.0, cum_res_kg = 0.0;
     double g_in = 0.0, g_out = 0.0;  // the other invariant at each end (the header's "One end first")
+    double m_in = 0.0, m_out = 0.0;  // metered flows at the ends (a standing line: the header's last paragraph)
   };
   // Mean of the samples with time in [from, to] (by index walk from `first`).
   Sample MeanOver(int first, int n, double from, double to) const;

@@ -49,9 +49,10 @@ std::string RuptureStatus::ToString() const {
   std::snprintf(buf, sizeof buf,
                 "rupture=%d wave_in=%.3f kg/s wave_out=%.3f kg/s outlet_fall=%.0f Pa metered=%.3f kg/s "
                 "balance=%.3f kg/s estimate=%.3f kg/s span=%.1f s before: wave_in=%.3f metered=%.3f kg/s "
-                "one_end=%d far: in=%.3f out=%.3f kg/s",
+                "one_end=%d far: in=%.3f out=%.3f kg/s standing=%d",
                 rupture ? 1 : 0, wave_in_kg_s, wave_out_kg_s, outlet_fall_pa, metered_kg_s, balance_kg_s,
-                estimate_kg_s, span_s, wave_in_before_kg_s, metered_before_kg_s, one_end, far_in_kg_s, far_out_kg_s);
+                estimate_kg_s, span_s, wave_in_before_kg_s, metered_before_kg_s, one_end, far_in_kg_s, far_out_kg_s,
+                standing ? 1 : 0);
   return buf;
 }
 
@@ -101,12 +102,14 @@ RuptureDetector::Sample RuptureDetector::MeanOver(int first, int n, double from,
     m.t += s.t; m.s_in += s.s_in; m.s_out += s.s_out; m.lat += s.lat; m.net += s.net; m.p_out += s.p_out;
     m.cum_res_kg += s.cum_res_kg;
     m.g_in += s.g_in; m.g_out += s.g_out;
+    m.m_in += s.m_in; m.m_out += s.m_out;
     ++k;
   }
   if (k > 0) {
     const double w = 1.0 / k;
     m.t *= w; m.s_in *= w; m.s_out *= w; m.lat *= w; m.net *= w; m.p_out *= w; m.cum_res_kg *= w;
     m.g_in *= w; m.g_out *= w;
+    m.m_in *= w; m.m_out *= w;
   }
   return m;
 }
@@ -128,6 +131,8 @@ const RuptureStatus& RuptureDetector::Step(double t, const RuptureInput& in) {
   s.cum_res_kg = cum_res_kg_;
   s.g_in = in.inflow_kg_s + b_in_ * in.p_inlet_pa;
   s.g_out = -in.outflow_kg_s + b_out_ * in.p_outlet_pa;
+  s.m_in = in.inflow_kg_s;
+  s.m_out = in.outflow_kg_s;
   const int slot = (head_ + count_) % size;
   if (count_ == size) head_ = (head_ + 1) % size; else ++count_;
   ring_[slot] = s;
@@ -183,7 +188,15 @@ const RuptureStatus& RuptureDetector::Step(double t, const RuptureInput& in) {
   // smeared by friction on a long line), so over the look-back the ends can
   // look as if an unmetered flow had appeared. Left to the decision.
   const bool laterals_quiet = std::fabs(dlat) <= options_.quiet_share * thr;
-  status_.rupture = status_.wave_in_kg_s >= wave && outlet_ok && ref_ok && laterals_quiet &&
+  // A standing line (the header): blocked in at the reference or at the
+  // look-back's start.
+  // With a tank inside, the outlet meters measure what leaves the tank (it
+  // may deliver through a shut-in): the pipe stands when its inlet does.
+  auto still = [&](const Sample& x) {
+    return std::fabs(x.m_in) <= quiet && (!outlet_at_pipe_end_ || std::fabs(x.m_out) <= quiet);
+  };
+  status_.standing = still(a) || (have_ref && still(r));
+  status_.rupture = !status_.standing && status_.wave_in_kg_s >= wave && outlet_ok && ref_ok && laterals_quiet &&
                     status_.metered_kg_s >= options_.metered_share * thr &&
                     status_.balance_kg_s >= options_.balance_share * thr;
   status_.one_end = 0;
@@ -205,7 +218,7 @@ const RuptureStatus& RuptureDetector::Step(double t, const RuptureInput& in) {
     }
   }
   const double t_far = ring_[head_].t;
-  if (one_end_ok_ && !status_.rupture && t - t_far >= span_s_ - options_.average_s - 1e-9 && laterals_quiet &&
+  if (one_end_ok_ && !status_.rupture && !status_.standing && t - t_far >= span_s_ - options_.average_s - 1e-9 && laterals_quiet &&
       status_.balance_kg_s >= options_.balance_share * thr && status_.metered_kg_s >= 0.0) {
     const Sample f = MeanOver(head_, count_, t_far, t_far + options_.average_s);
     status_.far_in_kg_s = std::fabs(b.g_in - f.g_in) - std::fabs(b.s_in - f.s_in);
@@ -219,10 +232,12 @@ const RuptureStatus& RuptureDetector::Step(double t, const RuptureInput& in) {
     // the end's own.
     const double out_opposite = outlet_at_pipe_end_ ? -status_.wave_out_kg_s : -b_out_ * status_.outlet_fall_pa;
     const double in_opposite = -status_.wave_in_kg_s;
-    if (status_.wave_in_kg_s >= wave && ref_ok && status_.far_out_kg_s <= quiet &&
+    // The leading end passive as well (the header): its own |dg| - |ds|.
+    if (status_.wave_in_kg_s >= wave && ref_ok && status_.far_out_kg_s <= quiet && status_.far_in_kg_s <= quiet &&
         out_opposite <= kOppositeShare * status_.wave_in_kg_s) {
       status_.one_end = 1;
     } else if (outlet_at_pipe_end_ && status_.wave_out_kg_s >= wave && status_.far_in_kg_s <= quiet &&
+               status_.far_out_kg_s <= quiet &&
                in_opposite <= kOppositeShare * status_.wave_out_kg_s) {
       const double out_before = have_ref ? (a.s_out - r.s_out) - (a.lat - r.lat) : 0.0;
       if (std::fabs(out_before) <= quiet && std::fabs(status_.metered_before_kg_s) <= quiet &&
