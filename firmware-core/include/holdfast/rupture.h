@@ -83,9 +83,10 @@
 // A standing line (both end flows within the quiet margin at the reference or
 // at the look-back's start, the inlet's alone with a tank inside the segment,
 // whose outlet meters measure what leaves the tank: blocked in, or a restart
-// from it) raises no
-// rupture: its valves opening and the line settling after a shut-in send the
-// waves a leak would, and a leak in it is the shut-in watch's (decision.h).
+// from it) raises no rupture: its valves opening and the line settling after
+// a shut-in send the waves a leak would, and a leak in it is the shut-in
+// watch's (decision.h). The end flows come from the two invariants, m_in =
+// (s_in + g_in) / 2 and m_out = -(s_out + g_out) / 2.
 #pragma once
 
 #include <string>
@@ -135,7 +136,7 @@ struct RuptureStatus {
   double metered_before_kg_s = 0.0;  // move of the metered shortfall over the same
   double far_in_kg_s = 0.0;      // inlet's own change |dg_in| - |ds_in| over the extended look-back
   double far_out_kg_s = 0.0;     // outlet's likewise (tank inside: B x the outlet pressure rise)
-  bool standing = false;         // both end flows within the quiet margin at the reference or the look-back's start
+  bool standing = false;         // the line stood still at the reference or the look-back's start (header)
   int one_end = 0;               // 0: both ends (or none); 1: raised from the inlet alone; 2: the outlet alone;
                                  // 3: from the line's own imbalance before either end hears it
   // True when the look-back shows a leak-like change at both ends (the wave
@@ -172,7 +173,6 @@ class RuptureDetector {
   struct Sample {
     double t = 0.0, s_in = 0.0, s_out = 0.0, lat = 0.0, net = 0.0, p_in = 0.0, p_out = 0.0, cum_res_kg = 0.0;
     double g_in = 0.0, g_out = 0.0;  // the other invariant at each end (the header's "One end first")
-    double m_in = 0.0, m_out = 0.0;  // metered flows at the ends (a standing line: the header's last paragraph)
   };
   // Mean of the samples with time in [from, to] (by index walk from `first`).
   Sample MeanOver(int first, int n, double from, double to) const;

@@ -102,14 +102,12 @@ RuptureDetector::Sample RuptureDetector::MeanOver(int first, int n, double from,
     m.t += s.t; m.s_in += s.s_in; m.s_out += s.s_out; m.lat += s.lat; m.net += s.net; m.p_out += s.p_out;
     m.cum_res_kg += s.cum_res_kg;
     m.g_in += s.g_in; m.g_out += s.g_out;
-    m.m_in += s.m_in; m.m_out += s.m_out;
     ++k;
   }
   if (k > 0) {
     const double w = 1.0 / k;
     m.t *= w; m.s_in *= w; m.s_out *= w; m.lat *= w; m.net *= w; m.p_out *= w; m.cum_res_kg *= w;
     m.g_in *= w; m.g_out *= w;
-    m.m_in *= w; m.m_out *= w;
   }
   return m;
 }
@@ -131,8 +129,6 @@ const RuptureStatus& RuptureDetector::Step(double t, const RuptureInput& in) {
   s.cum_res_kg = cum_res_kg_;
   s.g_in = in.inflow_kg_s + b_in_ * in.p_inlet_pa;
   s.g_out = -in.outflow_kg_s + b_out_ * in.p_outlet_pa;
-  s.m_in = in.inflow_kg_s;
-  s.m_out = in.outflow_kg_s;
   const int slot = (head_ + count_) % size;
   if (count_ == size) head_ = (head_ + 1) % size; else ++count_;
   ring_[slot] = s;
@@ -193,7 +189,8 @@ const RuptureStatus& RuptureDetector::Step(double t, const RuptureInput& in) {
   // With a tank inside, the outlet meters measure what leaves the tank (it
   // may deliver through a shut-in): the pipe stands when its inlet does.
   auto still = [&](const Sample& x) {
-    return std::fabs(x.m_in) <= quiet && (!outlet_at_pipe_end_ || std::fabs(x.m_out) <= quiet);
+    const double m_in = 0.5 * (x.s_in + x.g_in), m_out = -0.5 * (x.s_out + x.g_out);
+    return std::fabs(m_in) <= quiet && (!outlet_at_pipe_end_ || std::fabs(m_out) <= quiet);
   };
   status_.standing = still(a) || (have_ref && still(r));
   status_.rupture = !status_.standing && status_.wave_in_kg_s >= wave && outlet_ok && ref_ok && laterals_quiet &&
@@ -218,8 +215,8 @@ const RuptureStatus& RuptureDetector::Step(double t, const RuptureInput& in) {
     }
   }
   const double t_far = ring_[head_].t;
-  if (one_end_ok_ && !status_.rupture && !status_.standing && t - t_far >= span_s_ - options_.average_s - 1e-9 && laterals_quiet &&
-      status_.balance_kg_s >= options_.balance_share * thr && status_.metered_kg_s >= 0.0) {
+  if (one_end_ok_ && !status_.rupture && !status_.standing && t - t_far >= span_s_ - options_.average_s - 1e-9 &&
+      laterals_quiet && status_.balance_kg_s >= options_.balance_share * thr && status_.metered_kg_s >= 0.0) {
     const Sample f = MeanOver(head_, count_, t_far, t_far + options_.average_s);
     status_.far_in_kg_s = std::fabs(b.g_in - f.g_in) - std::fabs(b.s_in - f.s_in);
     status_.far_out_kg_s = outlet_at_pipe_end_ ? std::fabs(b.g_out - f.g_out) - std::fabs(b.s_out - f.s_out)
