@@ -1,5 +1,9 @@
 // Core throughput: ticks per second for one segment with 50 reaches, 8 points
 // and 3 windows, and heap allocations per tick (must be zero).
+// BM_DecisionPath times the stages after the balance on their own: the
+// detector bank (SegmentDecision), the rupture detector and the segment's
+// four alarms, one tick each, fed a steady noisy balance (target: 5 million
+// ticks/s per segment on one core).
 #include <benchmark/benchmark.h>
 
 #include <cmath>
@@ -7,7 +11,10 @@
 #include <cstdlib>
 
 #include "alloc_counter.h"
+#include "holdfast/alarm.h"
+#include "holdfast/decision.h"
 #include "holdfast/monitor.h"
+#include "holdfast/rupture.h"
 #include "test_site.h"
 
 namespace holdfast {
@@ -93,6 +100,67 @@ BENCHMARK(BM_MonitorTick)
     ->Args({0, 1})
     ->Args({1, 1})
     ->ArgNames({"transport", "decision"});
+
+// The decision path: what a tick costs after the balance is known.
+void BM_DecisionPath(benchmark::State& state) {
+  static const Site site = BenchSite(false, true);
+  const SegmentSpec& seg = site.segments[0];
+  std::string why;
+  static CusumThresholdTable table;
+  static const bool built = table.Build(DecisionOptions{}.false_alarm_interval_s / DecisionOptions{}.block_s, &why);
+  SegmentDecision decision;
+  RuptureDetector rupture;
+  if (!built || !decision.Init(DecisionOptions{}, seg.nominal_flow_kg_s, &table, &why) ||
+      !rupture.Init(RuptureOptions{}, seg, site.tick_s, 860.0, 1.4e9, 2000.0, &why)) {
+    state.SkipWithError(why.c_str());
+    return;
+  }
+  SequenceCounter counter;
+  AlarmEventRing<64> sink;
+  Alarm alarms[kAlarmTypeCount];
+  for (int k = 0; k < kAlarmTypeCount; ++k) {
+    if (!alarms[k].Init(0, static_cast<AlarmType>(k), AlarmOptions{}, &counter, &sink, &why)) {
+      state.SkipWithError(why.c_str());
+      return;
+    }
+  }
+  double t = 1.7e9;
+  uint64_t k = 0;
+  auto tick = [&] {
+    t += 1.0;
+    ++k;
+    const double noise = 0.01 * static_cast<double>(static_cast<int>(k * 2654435761u % 201) - 100);
+    decision.Step(t, 1.0, true, noise, 0.1 * noise);
+    RuptureInput in;
+    in.inflow_kg_s = 200.0 + noise;
+    in.outflow_kg_s = 150.0;
+    in.lateral_out_kg_s = 49.0;
+    in.p_inlet_pa = 40e5 + 100.0 * noise;
+    in.p_outlet_pa = 8e5;
+    in.residual_kg_s = noise;
+    const RuptureStatus& rs = rupture.Step(t, in);
+    const DecisionResult& d = decision.result();
+    AlarmEvidence ev;
+    ev.leak_rate_kg_s = d.leak_rate_kg_s;
+    alarms[0].Update(t, d.state == DecisionState::kLeak, ev);
+    alarms[1].Update(t, rs.rupture, ev);
+    alarms[2].Update(t, false, ev);
+    alarms[3].Update(t, false, ev);
+  };
+  for (int i = 0; i < 8000; ++i) tick();  // past the warm-up and the rupture's look-back
+  const uint64_t before = bench::AllocationCount();
+  for (auto _ : state) {
+    tick();
+    benchmark::DoNotOptimize(decision.result().leak_rate_kg_s);
+  }
+  const uint64_t allocs = bench::AllocationCount() - before;
+  state.counters["allocs_per_tick"] =
+      benchmark::Counter(static_cast<double>(allocs) / static_cast<double>(state.iterations()));
+  state.counters["ticks_per_s"] = benchmark::Counter(static_cast<double>(state.iterations()),
+                                                     benchmark::Counter::kIsRate);
+  if (allocs != 0) state.SkipWithError("the decision path allocated on the heap");
+}
+BENCHMARK(BM_DecisionPath);
 
 }  // namespace
 }  // namespace holdfast

@@ -771,6 +771,12 @@ void Monitor::UpdateAlarms(SegmentRuntime& s, int index, double t) {
       rv.statistic = rs.wave_in_kg_s;
       rv.threshold = s.rupture_ready ? options_.rupture.wave_share * s.rupture.threshold_kg_s() : kNaN;
       rv.window_s = rs.span_s;
+    }
+    // The detail text only when someone can see it: the condition is up or
+    // the alarm is not at rest (formatting it every tick cost a fifth of the
+    // decision path).
+    Alarm& ra = a[static_cast<int>(AlarmType::kRupture)];
+    if ((out.rupture || rs.span_s > 0.0) && (out.rupture || ra.state() != AlarmState::kNormal)) {
       char buf[AlarmEvidence::kDetailSize];
       if (std::isnan(rs.wave_out_kg_s))
         std::snprintf(buf, sizeof buf, "waves: inlet %.1f kg/s, outlet fall %.0f kPa; metered %.1f kg/s",
@@ -780,7 +786,7 @@ void Monitor::UpdateAlarms(SegmentRuntime& s, int index, double t) {
                       rs.wave_out_kg_s, rs.metered_kg_s);
       rv.SetDetail(buf);
     }
-    a[static_cast<int>(AlarmType::kRupture)].Update(t, out.rupture, rv);
+    ra.Update(t, out.rupture, rv);
   }
   // At start-up points report one by one: missing data is not a fault until
   // every point has had its staleness limit (kStartupGrace_s) to report.
