@@ -356,6 +356,41 @@ TEST(RuptureDetector, StandingLineRaisesNoRupture) {
   EXPECT_FALSE(raised);
 }
 
+// A line at rest (blocked in, settled): a leak q sends q / 2 each way; at a
+// closed end the wave reflects and the pressure falls by twice the wave's,
+// dP = 2 (q / 2) / B = q / B (the same compatibility relations), so B x the
+// fall is q at each end while both meters stay at zero. Raised once the
+// line has stood for rest_settle_s; not while the shut-in's own waves may
+// still run, and not when a meter moved (a valve opening).
+struct RestRun {
+  bool raised = false, at_rest = false;
+};
+RestRun RunAtRest(double stood_s, double outflow_after_kg_s) {
+  Rig r = MakeRig();
+  RestRun out;
+  const double q = 30.0;  // kg/s; threshold 0.1 x 200 = 20, wave share 10
+  for (int k = 0; k < stood_s + 40; ++k) {
+    const bool on = k >= stood_s;
+    RuptureInput in;
+    in.p_inlet_pa = 30e5 - (on ? q / r.b : 0.0);
+    in.p_outlet_pa = 30e5 - (on ? q / r.det.b_outlet_m_s() : 0.0);
+    in.outflow_kg_s = on ? outflow_after_kg_s : 0.0;
+    in.residual_kg_s = on && outflow_after_kg_s == 0.0 ? q : 0.0;  // a valve: the pack leaves by its meter
+    const RuptureStatus& st = r.det.Step(k, in);
+    out.raised = out.raised || st.rupture;
+    out.at_rest = out.at_rest || (st.rupture && st.at_rest);
+  }
+  return out;
+}
+
+TEST(RuptureDetector, LineAtRestRaisesFromItsEndPressures) {
+  const RestRun settled = RunAtRest(900.0, 0.0);  // stood 900 s > rest_settle_s (600 s)
+  EXPECT_TRUE(settled.raised);
+  EXPECT_TRUE(settled.at_rest);
+  EXPECT_FALSE(RunAtRest(300.0, 0.0).raised);    // stood 300 s: the shut-in's waves may still run
+  EXPECT_FALSE(RunAtRest(900.0, 25.0).raised);   // the outlet meter moved: a valve, not a leak
+}
+
 TEST(RuptureOptions, EachFailureSaysWhy) {
   std::string why;
   RuptureOptions o;

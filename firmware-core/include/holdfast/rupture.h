@@ -87,8 +87,20 @@
 // a shut-in send the waves a leak would, and a leak in it is the shut-in
 // watch's (decision.h). The end flows come from the two invariants, m_in =
 // (s_in + g_in) / 2 and m_out = -(s_out + g_out) / 2.
+//
+// At rest: once a standing line has stood for rest_settle_s (its shut-in
+// waves have died down) a rupture is raised from the ends' pressures alone.
+// A leak in a blocked-in line sends a rarefaction each way; at a closed end
+// it reflects and the pressure falls by twice the wave's, so B x the fall
+// is the whole leak rate at each end (Wylie & Streeter 1993, ch. 3: a
+// wave at a dead end, from memory). Raised when both ends show it (each at
+// least wave_share x the threshold), the line was quiet before, no meter
+// moved (|metered| within the quiet margin: a valve that opens shows on its
+// meter) and the compensated imbalance over the look-back is a shortfall
+// (at least balance_share x the threshold).
 #pragma once
 
+#include <limits>
 #include <string>
 #include <vector>
 
@@ -109,6 +121,7 @@ struct RuptureOptions {
   double quiet_share = 0.5;     // largest move before the look-back, share of the threshold
   double pressure_sigmas = 4.0; // outlet without a pipe-end meter: its fall, in sigmas
   bool one_end = true;          // also raise from one end (the header's "One end first")
+  double rest_settle_s = 600.0; // a line at rest (the header) gets a rupture path this long after its flows stopped, s
   bool IsValid(std::string* why) const;
 };
 
@@ -137,6 +150,7 @@ struct RuptureStatus {
   double far_in_kg_s = 0.0;      // inlet's own change |dg_in| - |ds_in| over the extended look-back
   double far_out_kg_s = 0.0;     // outlet's likewise (tank inside: B x the outlet pressure rise)
   bool standing = false;         // the line stood still at the reference or the look-back's start (header)
+  bool at_rest = false;          // the rupture was raised on a line at rest, from its end pressures (header)
   int one_end = 0;               // 0: both ends (or none); 1: raised from the inlet alone; 2: the outlet alone;
                                  // 3: from the line's own imbalance before either end hears it
   // True when the look-back shows a leak-like change at both ends (the wave
@@ -156,7 +170,10 @@ class RuptureDetector {
   bool Init(const RuptureOptions& options, const SegmentSpec& segment, double tick_s, double density_kg_m3,
             double bulk_modulus_pa, double outlet_pressure_sigma_pa, std::string* why);
   // Forgets the look-back (after a gap or a restart).
-  void Restart() { count_ = 0; }
+  void Restart() {
+    count_ = 0;
+    rest_since_s_ = std::numeric_limits<double>::quiet_NaN();
+  }
   // One valid tick. Allocates nothing.
   const RuptureStatus& Step(double t, const RuptureInput& in);
   const RuptureStatus& status() const { return status_; }
@@ -174,8 +191,10 @@ class RuptureDetector {
     double t = 0.0, s_in = 0.0, s_out = 0.0, lat = 0.0, net = 0.0, p_in = 0.0, p_out = 0.0, cum_res_kg = 0.0;
     double g_in = 0.0, g_out = 0.0;  // the other invariant at each end (the header's "One end first")
   };
-  // Mean of the samples with time in [from, to] (by index walk from `first`).
+  // Mean of the samples with time in [from, to] among n from slot `first` (start found by bisection).
   Sample MeanOver(int first, int n, double from, double to) const;
+  // The first offset from head_ in [lo, hi) whose sample time is >= from (hi if none).
+  int FirstFrom(int lo, int hi, double from) const;
 
   RuptureOptions options_;
   double threshold_kg_s_ = 0.0;
@@ -187,6 +206,7 @@ class RuptureDetector {
   std::vector<Sample> ring_;
   int head_ = 0, count_ = 0;
   double cum_res_kg_ = 0.0, last_t_ = 0.0;
+  double rest_since_s_ = std::numeric_limits<double>::quiet_NaN();  // both end flows quiet since (NaN: flowing)
   // The line-itself path's noise gate: the in-control spread of the
   // imbalance over a sixth of the look-back (exponentially weighted, one
   // hour), and how long it has been learnt.

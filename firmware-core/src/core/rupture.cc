@@ -34,11 +34,12 @@ bool RuptureOptions::IsValid(std::string* why) const {
   if (!(balance_share >= 0.0 && balance_share <= 1.0)) return fail("rupture: balance_share must be in [0, 1]");
   if (!(pressure_sigmas > 0.0)) return fail("rupture: pressure_sigmas must be positive");
   if (!(quiet_share > 0.0)) return fail("rupture: quiet_share must be positive");
+  if (!(rest_settle_s >= 0.0) || !std::isfinite(rest_settle_s)) return fail("rupture: rest_settle_s must be >= 0");
   return true;
 }
 
 bool RuptureStatus::LeakLike(double threshold_kg_s) const {
-  if (one_end != 0) return true;
+  if (one_end != 0 || (rupture && at_rest)) return true;
   const bool out_ok = std::isnan(wave_out_kg_s) ? outlet_fall_pa > 0.0 : wave_out_kg_s >= threshold_kg_s;
   return wave_in_kg_s >= threshold_kg_s && out_ok && metered_kg_s > 0.0 &&
          std::fabs(lateral_change_kg_s) <= 0.5 * threshold_kg_s;
@@ -49,10 +50,10 @@ std::string RuptureStatus::ToString() const {
   std::snprintf(buf, sizeof buf,
                 "rupture=%d wave_in=%.3f kg/s wave_out=%.3f kg/s outlet_fall=%.0f Pa metered=%.3f kg/s "
                 "balance=%.3f kg/s estimate=%.3f kg/s span=%.1f s before: wave_in=%.3f metered=%.3f kg/s "
-                "one_end=%d far: in=%.3f out=%.3f kg/s standing=%d",
+                "one_end=%d far: in=%.3f out=%.3f kg/s standing=%d at_rest=%d",
                 rupture ? 1 : 0, wave_in_kg_s, wave_out_kg_s, outlet_fall_pa, metered_kg_s, balance_kg_s,
                 estimate_kg_s, span_s, wave_in_before_kg_s, metered_before_kg_s, one_end, far_in_kg_s, far_out_kg_s,
-                standing ? 1 : 0);
+                standing ? 1 : 0, at_rest ? 1 : 0);
   return buf;
 }
 
@@ -87,17 +88,33 @@ bool RuptureDetector::Init(const RuptureOptions& options, const SegmentSpec& seg
   head_ = count_ = 0;
   cum_res_kg_ = 0.0;
   part_rate_var_ = part_rate_learnt_s_ = 0.0;
+  rest_since_s_ = kNaN;
   status_ = RuptureStatus{};
   return true;
+}
+
+// The ring's times increase, so the first sample at or after a time is found
+// by bisection: the per-tick cost does not grow with the kept span.
+int RuptureDetector::FirstFrom(int lo, int hi, double from) const {
+  const int size = static_cast<int>(ring_.size());
+  while (lo < hi) {
+    const int mid = lo + (hi - lo) / 2;
+    const int slot = head_ + mid;  // head_ < size and mid < size: one wrap at most
+    if (ring_[slot < size ? slot : slot - size].t < from) lo = mid + 1; else hi = mid;
+  }
+  return lo;
 }
 
 RuptureDetector::Sample RuptureDetector::MeanOver(int first, int n, double from, double to) const {
   Sample m;
   int k = 0;
   const int size = static_cast<int>(ring_.size());
-  for (int i = 0; i < n; ++i) {
-    const Sample& s = ring_[(first + i) % size];
-    if (s.t < from) continue;
+  // first is a ring slot; as an offset from head_ it starts the bisection.
+  const int offset = (first - head_ + size) % size;
+  const int start = FirstFrom(offset, offset + n, from) - offset;
+  int slot = (first + start) % size;
+  for (int i = start; i < n; ++i, slot = slot + 1 == size ? 0 : slot + 1) {
+    const Sample& s = ring_[slot];
     if (s.t > to) break;
     m.t += s.t; m.s_in += s.s_in; m.s_out += s.s_out; m.lat += s.lat; m.net += s.net; m.p_out += s.p_out;
     m.cum_res_kg += s.cum_res_kg;
@@ -137,11 +154,32 @@ const RuptureStatus& RuptureDetector::Step(double t, const RuptureInput& in) {
     head_ = (head_ + 1) % size;
     --count_;
   }
-  // The look-back starts at the first sample within window_s.
-  int first = 0;
-  while (first < count_ - 1 && t - ring_[(head_ + first) % size].t > options_.window_s + 1e-9) ++first;
+  // The first sample within a span of t, by bisection on the times.
+  auto first_within = [&](double span) {
+    int lo = 0, hi = count_ - 1;
+    while (lo < hi) {
+      const int mid = lo + (hi - lo) / 2;
+      const int slot = head_ + mid;
+      if (t - ring_[slot < size ? slot : slot - size].t > span + 1e-9) lo = mid + 1; else hi = mid;
+    }
+    return lo;
+  };
+  const int first = first_within(options_.window_s);  // the look-back's start
   const double t0 = ring_[(head_ + first) % size].t;
   status_.span_s = t - t0;
+  status_.at_rest = false;
+  const double thr = threshold_kg_s_;
+  const double quiet = options_.quiet_share * thr;
+  // A standing line (the header): blocked in at the reference or at the
+  // look-back's start.
+  // With a tank inside, the outlet meters measure what leaves the tank (it
+  // may deliver through a shut-in): the pipe stands when its inlet does.
+  auto still = [&](const Sample& x) {
+    const double m_in = 0.5 * (x.s_in + x.g_in), m_out = -0.5 * (x.s_out + x.g_out);
+    return std::fabs(m_in) <= quiet && (!outlet_at_pipe_end_ || std::fabs(m_out) <= quiet);
+  };
+  if (!still(s)) rest_since_s_ = kNaN;
+  else if (std::isnan(rest_since_s_)) rest_since_s_ = t;
   if (status_.span_s < options_.min_span_s) return status_;
   const Sample a = MeanOver((head_ + first) % size, count_ - first, t0, t0 + options_.average_s);
   // The newest samples: walk back from the end.
@@ -149,8 +187,7 @@ const RuptureStatus& RuptureDetector::Step(double t, const RuptureInput& in) {
   while (back < count_ - first - 1 && t - ring_[(head_ + count_ - 2 - back) % size].t <= options_.average_s + 1e-9)
     ++back;
   const Sample b = MeanOver((head_ + count_ - 1 - back) % size, back + 1, t - options_.average_s - 1e-9, t);
-  int ref_first = 0;  // the first sample within reference_s
-  while (ref_first < count_ - 1 && t - ring_[(head_ + ref_first) % size].t > options_.reference_s + 1e-9) ++ref_first;
+  const int ref_first = first_within(options_.reference_s);  // the first sample within reference_s
   const double t_ref = ring_[(head_ + ref_first) % size].t;
   const bool have_ref = t - t_ref >= options_.reference_s - options_.average_s;
   const Sample r = MeanOver((head_ + ref_first) % size, count_ - ref_first, t_ref, t_ref + options_.average_s);
@@ -165,7 +202,6 @@ const RuptureStatus& RuptureDetector::Step(double t, const RuptureInput& in) {
   status_.balance_kg_s = (b.cum_res_kg - a.cum_res_kg) / std::max(1e-9, b.t - a.t);
   status_.estimate_kg_s = outlet_at_pipe_end_ ? 0.5 * (status_.wave_in_kg_s + status_.wave_out_kg_s)
                                               : status_.wave_in_kg_s;
-  const double thr = threshold_kg_s_;
   const double wave = options_.wave_share * thr;
   // A mean of n samples at each end: the difference has sigma sqrt(2/n).
   const double n_avg = std::max(1.0, options_.average_s / std::max(1e-9, status_.span_s / count_));
@@ -175,7 +211,6 @@ const RuptureStatus& RuptureDetector::Step(double t, const RuptureInput& in) {
                                                             std::sqrt(2.0 / n_avg);
   // Before the longer reference is available (a start or a gap), the
   // look-back alone decides.
-  const double quiet = options_.quiet_share * thr;
   const bool ref_ok = !have_ref || (std::fabs(status_.wave_in_before_kg_s) <= quiet &&
                                     std::fabs(status_.metered_before_kg_s) <= quiet &&
                                     std::fabs(a.lat - r.lat) <= quiet);
@@ -184,18 +219,16 @@ const RuptureStatus& RuptureDetector::Step(double t, const RuptureInput& in) {
   // smeared by friction on a long line), so over the look-back the ends can
   // look as if an unmetered flow had appeared. Left to the decision.
   const bool laterals_quiet = std::fabs(dlat) <= options_.quiet_share * thr;
-  // A standing line (the header): blocked in at the reference or at the
-  // look-back's start.
-  // With a tank inside, the outlet meters measure what leaves the tank (it
-  // may deliver through a shut-in): the pipe stands when its inlet does.
-  auto still = [&](const Sample& x) {
-    const double m_in = 0.5 * (x.s_in + x.g_in), m_out = -0.5 * (x.s_out + x.g_out);
-    return std::fabs(m_in) <= quiet && (!outlet_at_pipe_end_ || std::fabs(m_out) <= quiet);
-  };
   status_.standing = still(a) || (have_ref && still(r));
   status_.rupture = !status_.standing && status_.wave_in_kg_s >= wave && outlet_ok && ref_ok && laterals_quiet &&
                     status_.metered_kg_s >= options_.metered_share * thr &&
                     status_.balance_kg_s >= options_.balance_share * thr;
+  // At rest (the header): settled, both ends' pressures fall, no meter moved.
+  if (status_.standing && t - rest_since_s_ >= options_.rest_settle_s && have_ref &&
+      status_.wave_in_kg_s >= wave && outlet_ok && ref_ok && laterals_quiet &&
+      std::fabs(status_.metered_kg_s) <= quiet && status_.balance_kg_s >= options_.balance_share * thr) {
+    status_.rupture = status_.at_rest = true;
+  }
   status_.one_end = 0;
   status_.far_in_kg_s = status_.far_out_kg_s = kNaN;
   // One end first (the header): the far end's own change over the look-back
