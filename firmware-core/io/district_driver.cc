@@ -255,12 +255,8 @@ bool DistrictRunner::Finish() {
 DistrictRunResult RunDistrict(DistrictRunner* runner, ReadingSource* source, const DistrictRunOptions& options) {
   DistrictRunResult res;
   if (runner == nullptr || source == nullptr) return res;
-  const double tick_s = runner->tick_s();
-  double first_tick = 0.0, next_tick = 0.0, last_time = 0.0;
-  uint64_t k = 0;
-  bool started = false;
-  // The tick rule of replay_driver.h: a reading belongs to the first tick at
-  // or after its time.
+  // The data-time driver of replay_driver.h: the same tick rule, window and
+  // start/until as every other command.
   auto tick = [&](double t) {
     if (runner->Advance(t)) {
       ++res.nights;
@@ -275,28 +271,17 @@ DistrictRunResult RunDistrict(DistrictRunner* runner, ReadingSource* source, con
       ++res.events;
       if (options.on_event) options.on_event(e);
     }
-    if (res.ticks == 0) res.first_tick_s = t;
-    res.last_tick_s = t;
-    ++res.ticks;
-    ++k;
-    next_tick = first_tick + static_cast<double>(k) * tick_s;
     if (options.on_tick) options.on_tick(t);
+    return true;
   };
-  Reading r;
-  while (source->Next(&r)) {
-    if (!started) {
-      first_tick = std::ceil(r.time_s / tick_s) * tick_s;
-      next_tick = first_tick;
-      last_time = r.time_s;
-      started = true;
-    }
-    while (r.time_s > next_tick) tick(next_tick);
-    runner->Feed(r);
-    ++res.readings_fed;
-    if (r.time_s > last_time) last_time = r.time_s;
-  }
-  if (started) {
-    while (next_tick <= last_time + 1e-9) tick(next_tick);
+  const ReplayResult drive =
+      DriveTicks(source, runner->tick_s(), static_cast<int>(runner->aligner().point_count()), options.timing,
+                 [runner](const Reading& r) { runner->Feed(r); }, tick);
+  res.readings_fed = drive.readings_fed;
+  res.ticks = drive.ticks;
+  res.first_tick_s = drive.first_tick_s;
+  res.last_tick_s = drive.last_tick_s;
+  if (drive.ticks > 0) {
     while (runner->Finish()) {
       ++res.nights;
       if (options.on_night) options.on_night(runner->night());

@@ -1,6 +1,6 @@
 // Water-utility mode at the file boundary: one district (DMA) of a site run
 // through the core's DistrictMonitor (burst detection) and NightFlowAnalyzer
-// (minimum night flow), on the same tick rule as replay_driver.h.
+// (minimum night flow), driven by the data-time driver of replay_driver.h.
 //
 //   holdfast::DistrictRunner runner;
 //   runner.Init(site, district_index, tick_s, &why);
@@ -95,6 +95,9 @@ struct DistrictRunOptions {
   std::function<void(const water::DistrictBlock&)> on_block;   // each decided block
   std::function<void(const water::NightResult&)> on_night;
   std::function<void(double t)> on_tick;
+  // start_s / until_s and the reorder window of the data-time driver
+  // (replay_driver.h; its on_event and on_tick are not used here).
+  ReplayOptions timing;
 };
 
 struct DistrictRunResult {

@@ -227,38 +227,33 @@ std::string ReplayResult::ToString() const {
 
 namespace {
 
-// RunReplay with a reorder window: the daemon's scheduler, released after
-// every reading (as the daemon's file input does), so that the result
-// depends only on the readings and their order.
-ReplayResult RunScheduled(Monitor* monitor, ReadingSource* source, double tick_s, const ReplayOptions& options) {
+// With a reorder window: the daemon's scheduler, released after every
+// reading (as the daemon's file input does), so that the result depends
+// only on the readings and their order.
+ReplayResult DriveScheduled(ReadingSource* source, double tick_s, int point_count, const ReplayOptions& options,
+                            const std::function<void(const Reading&)>& feed_fn,
+                            const std::function<bool(double)>& tick_fn) {
   ReplayResult res;
   TickScheduler::Options so;
   so.tick_s = tick_s;
   so.lateness_s = options.reorder_window_s;
   so.max_gap_s = std::max(options.max_gap_s, tick_s);
   so.max_lead_s = options.max_lead_s;
-  so.quorum_points =
-      std::max(1, std::min(options.lead_quorum_points, static_cast<int>(monitor->site().points.size())));
+  so.quorum_points = std::max(1, std::min(options.lead_quorum_points, point_count));
   if (!so.IsValid(nullptr)) return res;
   TickScheduler sched;
   sched.Init(so);
   const bool has_start = std::isfinite(options.start_s);
   const bool has_until = std::isfinite(options.until_s);
   auto feed = [&](const Reading& r) {
-    monitor->Feed(r);
+    feed_fn(r);
     ++res.readings_fed;
   };
   auto advance = [&](double t) {
-    monitor->Advance(t);
-    AlarmEvent e;
-    while (monitor->PopEvent(&e)) {
-      ++res.events;
-      if (options.on_event) options.on_event(e);
-    }
     if (res.ticks == 0) res.first_tick_s = t;
     res.last_tick_s = t;
     ++res.ticks;
-    if (options.on_tick && !options.on_tick(t)) sched.Stop();
+    if (!tick_fn(t)) sched.Stop();
   };
   Reading r;
   while (!sched.stopped() && source->Next(&r)) {
@@ -283,14 +278,15 @@ ReplayResult RunScheduled(Monitor* monitor, ReadingSource* source, double tick_s
 
 }  // namespace
 
-ReplayResult RunReplay(Monitor* monitor, ReadingSource* source, double tick_s, const ReplayOptions& options) {
+ReplayResult DriveTicks(ReadingSource* source, double tick_s, int point_count, const ReplayOptions& options,
+                        const std::function<void(const Reading&)>& feed, const std::function<bool(double)>& tick_fn) {
   ReplayResult res;
-  if (monitor == nullptr || source == nullptr || !(tick_s > 0.0) || !std::isfinite(tick_s) ||
+  if (source == nullptr || !feed || !tick_fn || !(tick_s > 0.0) || !std::isfinite(tick_s) ||
       !options.IsValid(nullptr))
     return res;
+  if (!std::isnan(options.reorder_window_s)) return DriveScheduled(source, tick_s, point_count, options, feed, tick_fn);
   const bool has_start = std::isfinite(options.start_s);
   const bool has_until = std::isfinite(options.until_s);
-  if (!std::isnan(options.reorder_window_s)) return RunScheduled(monitor, source, tick_s, options);
 
   double first_tick = 0.0;
   uint64_t k = 0;  // index of the next tick
@@ -299,20 +295,13 @@ ReplayResult RunReplay(Monitor* monitor, ReadingSource* source, double tick_s, c
   bool go_on = true;
   double last_time = 0.0;
 
-  // One tick: advance, hand over the events, then the per-tick callback.
   auto tick = [&](double t) {
-    monitor->Advance(t);
-    AlarmEvent e;
-    while (monitor->PopEvent(&e)) {
-      ++res.events;
-      if (options.on_event) options.on_event(e);
-    }
     if (res.ticks == 0) res.first_tick_s = t;
     res.last_tick_s = t;
     ++res.ticks;
     ++k;
     next_tick = first_tick + static_cast<double>(k) * tick_s;
-    if (options.on_tick && !options.on_tick(t)) go_on = false;
+    if (!tick_fn(t)) go_on = false;
   };
 
   Reading r;
@@ -333,7 +322,7 @@ ReplayResult RunReplay(Monitor* monitor, ReadingSource* source, double tick_s, c
     }
     while (go_on && r.time_s > next_tick) tick(next_tick);
     if (!go_on) break;
-    monitor->Feed(r);
+    feed(r);
     ++res.readings_fed;
     if (r.time_s > last_time) last_time = r.time_s;
   }
@@ -341,6 +330,25 @@ ReplayResult RunReplay(Monitor* monitor, ReadingSource* source, double tick_s, c
     while (go_on && next_tick <= last_time + 1e-9) tick(next_tick);
   }
   res.stopped = !go_on;
+  return res;
+}
+
+ReplayResult RunReplay(Monitor* monitor, ReadingSource* source, double tick_s, const ReplayOptions& options) {
+  if (monitor == nullptr) return ReplayResult{};
+  uint64_t events = 0;
+  // One tick: advance, hand over the events, then the per-tick callback.
+  auto tick = [&](double t) {
+    monitor->Advance(t);
+    AlarmEvent e;
+    while (monitor->PopEvent(&e)) {
+      ++events;
+      if (options.on_event) options.on_event(e);
+    }
+    return !options.on_tick || options.on_tick(t);
+  };
+  ReplayResult res = DriveTicks(source, tick_s, static_cast<int>(monitor->site().points.size()), options,
+                                [monitor](const Reading& r) { monitor->Feed(r); }, tick);
+  res.events = events;
   return res;
 }
 

@@ -1,5 +1,5 @@
 // The one tick loop of every file-driven tool (`holdfast balance`, `replay`,
-// `tune`, `evaluate`; holdfastd through TickScheduler below): readings from a source are fed
+// `tune`, `evaluate`, `district` through DriveTicks; holdfastd through TickScheduler below): readings from a source are fed
 // to a Monitor, and the monitor is advanced on the site's tick grid.
 //
 //   holdfast::ReadingsCsvReader reader;   reader.Open(path, site, &why);
@@ -232,6 +232,15 @@ struct ReplayResult {
 
   std::string ToString() const;  // one line, for logs and test failures
 };
+
+// The data-time driver itself, for any consumer of readings and ticks: the
+// tick rule above (or, with options.reorder_window_s, TickScheduler),
+// start_s / until_s, and the counts of the result. `feed` takes each
+// reading; `tick` runs one tick and returns false to stop. `point_count`
+// caps the lead guard's quorum. options.on_event and on_tick are not used
+// here (RunReplay wires them into `tick`); events stays 0.
+ReplayResult DriveTicks(ReadingSource* source, double tick_s, int point_count, const ReplayOptions& options,
+                        const std::function<void(const Reading&)>& feed, const std::function<bool(double)>& tick);
 
 // Runs the whole source through the monitor. tick_s must be positive and
 // finite; options must be valid (otherwise nothing runs and the result is
