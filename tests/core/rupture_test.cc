@@ -391,6 +391,24 @@ TEST(RuptureDetector, LineAtRestRaisesFromItsEndPressures) {
   EXPECT_FALSE(RunAtRest(900.0, 25.0).raised);   // the outlet meter moved: a valve, not a leak
 }
 
+// LeakLike lets the decision see a leak's own inventory change instead of
+// holding it as an operating change. A restart from a shut-in shows the
+// same end signature (the inlet draws more flow, the outlet falls, the
+// metered shortfall moves), so on a standing line only a rupture raised at
+// rest counts.
+TEST(RuptureStatus, OnAStandingLineOnlyARuptureAtRestIsLeakLike) {
+  RuptureStatus st;
+  st.wave_in_kg_s = 30.0;
+  st.wave_out_kg_s = 25.0;
+  st.metered_kg_s = 12.0;
+  st.lateral_change_kg_s = 0.0;
+  EXPECT_TRUE(st.LeakLike(20.0));  // flowing line: both ends and the meters agree
+  st.standing = true;
+  EXPECT_FALSE(st.LeakLike(20.0));  // the same at a restart
+  st.rupture = st.at_rest = true;
+  EXPECT_TRUE(st.LeakLike(20.0));
+}
+
 TEST(RuptureOptions, EachFailureSaysWhy) {
   std::string why;
   RuptureOptions o;

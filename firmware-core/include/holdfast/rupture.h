@@ -155,9 +155,10 @@ struct RuptureStatus {
                                  // 3: from the line's own imbalance before either end hears it
   // True when the look-back shows a leak-like change at both ends (the wave
   // conditions and the metered growth at `threshold_kg_s`, no lateral
-  // changed by more than half of it): an
-  // operating change never does, so the monitor does not hold the
-  // decision for it.
+  // changed by more than half of it) or a one-end rupture: an operating
+  // change never does, so the monitor does not hold the decision for it.
+  // On a standing line only a rupture raised at rest is (a restart from a
+  // shut-in looks like a leak at the ends).
   bool LeakLike(double threshold_kg_s) const;
   std::string ToString() const;
 };

@@ -39,7 +39,10 @@ bool RuptureOptions::IsValid(std::string* why) const {
 }
 
 bool RuptureStatus::LeakLike(double threshold_kg_s) const {
-  if (one_end != 0 || (rupture && at_rest)) return true;
+  // A standing line's restart sends the waves a leak would (the header):
+  // there, only a rupture raised at rest is leak-like.
+  if (standing) return rupture && at_rest;
+  if (one_end != 0) return true;
   const bool out_ok = std::isnan(wave_out_kg_s) ? outlet_fall_pa > 0.0 : wave_out_kg_s >= threshold_kg_s;
   return wave_in_kg_s >= threshold_kg_s && out_ok && metered_kg_s > 0.0 &&
          std::fabs(lateral_change_kg_s) <= 0.5 * threshold_kg_s;
