@@ -405,31 +405,54 @@ double FrictionScaleFromSteadyState(const std::vector<PipeSection>& sections,
                                     const std::vector<ElevationPoint>& profile,
                                     const GradientLocateInput& input,
                                     const GradientLocateOptions& options, std::string* why) {
-  GradientLocateOptions o = options;
-  o.friction_scale = 1.0;
-  Span sp;
-  std::vector<double> lat, lat_sigma;
-  if (!BuildSpan(sections, input, o, &sp, &lat, &lat_sigma, why)) return kNaN;
-  const double rho_g = input.density_kg_m3 * o.gravity_m_s2;
+  // The locator's own model (BuildSpan, Span::Slope at friction scale 1),
+  // walked piece by piece without building the span: the monitor calls this
+  // on every quiet block, so it allocates nothing.
+  auto fail = [why](const char* m) {
+    if (why) *why = m;
+    return kNaN;
+  };
+  if (!options.IsValid(why)) return kNaN;
+  if (sections.empty()) return fail("no pipe sections");
+  if (!(input.density_kg_m3 > 0.0) || !Finite(input.density_kg_m3)) return fail("density must be positive");
+  if (!(input.viscosity_pa_s > 0.0) || !Finite(input.viscosity_pa_s)) return fail("viscosity must be positive");
+  const double x_in = input.inlet.chainage_m, x_out = input.outlet.chainage_m;
+  if (!Finite(x_in) || !Finite(x_out) || !Finite(input.inlet.pressure_pa) || !Finite(input.outlet.pressure_pa) ||
+      !Finite(input.inlet.flow_kg_s))
+    return fail("the ends' chainage, pressure and the inlet flow must be finite");
+  if (!(x_out > x_in)) return fail("outlet chainage must exceed inlet chainage");
+  const double rho = input.density_kg_m3, mu = input.viscosity_pa_s, g = options.gravity_m_s2;
+  double predicted = 0.0, start = 0.0;
+  for (const PipeSection& sec : sections) {
+    const double a = std::max(start, x_in), b = std::min(start + sec.length_m, x_out);
+    start += sec.length_m;
+    if (!(b > a)) continue;
+    const double d = sec.inside_diameter_m(), area = sec.flow_area_m2();
+    // Split [a, b) at the laterals inside the span (as BuildSpan does).
+    double from = a;
+    while (from < b) {
+      double to = b, m = input.inlet.flow_kg_s;
+      for (const LateralFlow& lf : input.laterals) {
+        if (!(lf.chainage_m > x_in && lf.chainage_m < x_out) || !Finite(lf.flow_kg_s)) continue;
+        if (lf.chainage_m <= from) m += lf.flow_kg_s;
+        else if (lf.chainage_m < to) to = lf.chainage_m;
+      }
+      if (m != 0.0) {  // Span::Slope: Darcy-Weisbach, f Q|Q| / (2 g D A^2)
+        const double q = m / rho;
+        const double re = std::fabs(m) * d / (area * mu);
+        const double f = FrictionFactor(options.friction, re, sec.roughness_m / d);
+        predicted += f * q * std::fabs(q) / (2.0 * g * d * area * area) * (to - from);
+      }
+      from = to;
+    }
+  }
+  const double rho_g = rho * g;
   const double h_in = input.inlet.pressure_pa / rho_g + EndElevation(input.inlet, profile);
   const double h_out = input.outlet.pressure_pa / rho_g + EndElevation(input.outlet, profile);
-  double predicted = 0.0, lat_prefix = 0.0;
-  int used = 0;
-  for (int j = 0; j < sp.pieces(); ++j) {
-    const size_t u = static_cast<size_t>(j);
-    while (used < sp.laterals_before[u]) lat_prefix += lat[static_cast<size_t>(used++)];
-    predicted += sp.Slope(sp.section[u], input.inlet.flow_kg_s + lat_prefix) * (sp.x[u + 1] - sp.x[u]);
-  }
   const double measured = h_in - h_out;
-  if (!(std::fabs(predicted) > 0.0)) {
-    if (why) *why = "no flow: the friction formula predicts no head loss";
-    return kNaN;
-  }
+  if (!(std::fabs(predicted) > 0.0)) return fail("no flow: the friction formula predicts no head loss");
   const double scale = measured / predicted;
-  if (!(scale > 0.0)) {
-    if (why) *why = "the measured head loss has the wrong sign for the flow";
-    return kNaN;
-  }
+  if (!(scale > 0.0)) return fail("the measured head loss has the wrong sign for the flow");
   return scale;
 }
 

@@ -535,42 +535,11 @@ void Monitor::EndBlock(SegmentRuntime& s, double t) {
 }
 
 // Measured over predicted friction head loss between the end transmitters
-// for the flows in the locate input (Darcy-Weisbach, friction factor of
-// locate.h's model; laterals change the flow where they stand). Allocates
-// nothing; NaN when there is no usable flow or loss.
+// for the flows in the locate input: locate.h's FrictionScaleFromSteadyState,
+// the locator's own model (allocates nothing); NaN when there is no usable
+// flow or loss.
 double Monitor::FrictionScale(const SegmentRuntime& s) const {
-  const SegmentSpec& spec = *s.spec;
-  const GradientLocateInput& in = s.locate_input;
-  const double x0 = in.inlet.chainage_m, x1 = in.outlet.chainage_m;
-  if (!(x1 > x0) || !(in.density_kg_m3 > 0.0) || !(in.viscosity_pa_s > 0.0)) return kNaN;
-  double predicted = 0.0, start = 0.0;
-  for (const PipeSection& sec : spec.sections) {
-    const double a = std::max(start, x0), b = std::min(start + sec.length_m, x1);
-    start += sec.length_m;
-    if (b <= a) continue;
-    const double d = sec.inside_diameter_m();
-    const double area = sec.flow_area_m2();
-    // Split [a, b) at the laterals inside it.
-    double from = a;
-    while (from < b) {
-      double to = b, q = in.inlet.flow_kg_s;
-      for (const LateralFlow& lf : in.laterals) {
-        if (lf.chainage_m <= from) q += lf.flow_kg_s;
-        else if (lf.chainage_m < to) to = lf.chainage_m;
-      }
-      const double v = q / (in.density_kg_m3 * area);
-      const double re = in.density_kg_m3 * std::fabs(v) * d / in.viscosity_pa_s;
-      const double f = FrictionFactor(options_.locate.friction, re, sec.roughness_m / d);
-      predicted += f * (to - from) / d * v * std::fabs(v) / (2.0 * kStandardGravity_m_s2);
-      from = to;
-    }
-  }
-  const GaugeSpec& g0 = spec.pressure_gauges[s.p_first];
-  const GaugeSpec& g1 = spec.pressure_gauges[s.p_last];
-  const double measured = (in.inlet.pressure_pa - in.outlet.pressure_pa) / (in.density_kg_m3 * kStandardGravity_m_s2) +
-                          (g0.elevation_m - g1.elevation_m);
-  if (!(std::fabs(predicted) > 1e-6)) return kNaN;
-  return measured / predicted;
+  return FrictionScaleFromSteadyState(s.spec->sections, s.spec->profile, s.locate_input, options_.locate, nullptr);
 }
 
 // Fills the segment's locate input from block means and, when a leak is
