@@ -66,53 +66,12 @@ class Compiler : private JsonCheck {
   void Run(const json& doc);
 
  private:
-  // {"value": v, "unit": u} of one of `accepted`; `quantity` gets which.
-  Got Qty(const json& obj, const char* key, const std::string& path, Need need, std::initializer_list<Quantity> accepted,
-          double* si, Quantity* quantity = nullptr) {
-    const json* q = Present(obj, key, path, need, "a quantity {\"value\": number, \"unit\": name}");
-    if (q == nullptr) return Got::kAbsent;
-    const std::string qpath = Join(path, key);
-    if (!q->is_object()) {
-      Add(qpath, "must be a quantity {\"value\": number, \"unit\": \"name\"} (got " + Describe(*q) + ")");
-      return Got::kBad;
-    }
-    ExactKeys(*q, qpath, {"value", "unit"});
-    double value = 0.0;
-    std::string unit;
-    const Got gv = Number(*q, "value", qpath, Need::kRequired, &value);
-    const Got gu = String(*q, "unit", qpath, Need::kRequired, &unit);
-    if (gv != Got::kOk || gu != Got::kOk) return Got::kBad;
-    UnitConversion c;
-    bool found = false;
-    for (Quantity a : accepted) {
-      if (LookUpUnitOf(unit, a, &c, nullptr)) {
-        found = true;
-        break;
-      }
-    }
-    if (!found) {
-      std::string wanted, why;
-      for (Quantity a : accepted) wanted += (wanted.empty() ? "" : " or ") + std::string(QuantityName(a));
-      if (accepted.size() == 1) {
-        LookUpUnitOf(unit, *accepted.begin(), &c, &why);
-        Add(Join(qpath, "unit"), why);
-      } else {
-        std::string names;
-        for (Quantity a : accepted) names += (names.empty() ? "" : ", ") + KnownUnitNames(a);
-        Add(Join(qpath, "unit"), "unit " + Quote(unit) + " is not a " + wanted + " unit (accepted: " + names + ")");
-      }
-      return Got::kBad;
-    }
-    *si = c.ToSi(value);
-    if (quantity != nullptr) *quantity = c.quantity;
-    return Got::kOk;
-  }
   // A flow quantity (mass or volume); `is_volume` says which.
   Got Flow(const json& obj, const char* key, const std::string& path, Need need, double* si, bool* is_volume) {
-    Quantity q = Quantity::kMassFlow;
-    const Got g = Qty(obj, key, path, need, {Quantity::kMassFlow, Quantity::kVolumeFlow}, si, &q);
+    UnitConversion c;
+    const Got g = Qty(obj, key, path, need, {Quantity::kMassFlow, Quantity::kVolumeFlow}, si, &c);
     if (g == Got::kOk) {
-      *is_volume = q == Quantity::kVolumeFlow;
+      *is_volume = c.quantity == Quantity::kVolumeFlow;
       if (*si < 0.0) {
         Add(Join(Join(path, key), "value"), "a flow must not be negative (got " + Num(*si) + " in SI)");
         return Got::kBad;

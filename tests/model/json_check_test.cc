@@ -219,6 +219,28 @@ TEST_F(Readers, ExactKeys) {
   EXPECT_TRUE(problems.empty()) << All(problems);
 }
 
+TEST_F(Readers, QuantityWithUnit) {
+  const json obj = json::parse(R"({"p": {"value": 2, "unit": "bar"}, "q": {"value": 2, "unit": "bar"},
+                                   "r": {"value": 2, "unit": "m3/hr"}, "s": 5})");
+  double si = 0.0;
+  UnitConversion c;
+  EXPECT_EQ(check.Qty(obj, "p", "", Need::kRequired, {Quantity::kPressure}, &si, &c), Got::kOk);
+  EXPECT_DOUBLE_EQ(si, 2e5);
+  EXPECT_EQ(c.quantity, Quantity::kPressure);
+  EXPECT_TRUE(problems.empty()) << All(problems);
+  EXPECT_EQ(check.Qty(obj, "q", "", Need::kRequired, {Quantity::kMassFlow, Quantity::kVolumeFlow}, &si), Got::kBad);
+  EXPECT_NE(Only().find("/q/unit: unit \"bar\" is a pressure unit, expected a mass flow or volume flow unit"),
+            std::string::npos);
+  problems.clear();
+  EXPECT_EQ(check.Qty(obj, "r", "", Need::kRequired, {Quantity::kMassFlow, Quantity::kVolumeFlow}, &si), Got::kBad);
+  EXPECT_NE(Only().find("/r/unit: unknown mass flow or volume flow unit \"m3/hr\" (did you mean \"m3/h\"?)"),
+            std::string::npos);
+  problems.clear();
+  EXPECT_EQ(check.Qty(obj, "s", "", Need::kRequired, {Quantity::kPressure}, &si), Got::kBad);
+  EXPECT_NE(Only().find("/s: must be a quantity {\"value\": number, \"unit\": \"name\"} (got a number (5))"),
+            std::string::npos);
+}
+
 TEST(JsonCheck, FileNamePrefixesEveryPath) {
   std::vector<ConfigProblem> problems;
   JsonCheck check(&problems, "year.json");

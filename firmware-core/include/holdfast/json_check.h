@@ -6,12 +6,14 @@
 #pragma once
 
 #include <cstddef>
+#include <initializer_list>
 #include <string>
 #include <vector>
 
 #include <nlohmann/json.hpp>
 
 #include "holdfast/site_config.h"
+#include "holdfast/units.h"
 
 namespace holdfast {
 
@@ -123,6 +125,14 @@ class JsonCheck {
                   const char* what, const nlohmann::json** out);
   // An array element (at `path`) that must be an object.
   bool ElementObject(const nlohmann::json& e, const std::string& path);
+  // Resolves a unit name of one of the `accepted` quantities; otherwise
+  // reports at `path` what it is or the closest known name, with the list.
+  bool Unit(const std::string& name, std::initializer_list<Quantity> accepted, const std::string& path,
+            UnitConversion* out);
+  // A quantity {"value": number, "unit": "name"} of one of `accepted`; *si
+  // gets the value in SI, *conv (if given) the unit.
+  Got Qty(const nlohmann::json& obj, const char* key, const std::string& path, Need need,
+          std::initializer_list<Quantity> accepted, double* si, UnitConversion* conv = nullptr);
   // Reports every member of `obj` not in `allowed`, naming it, suggesting the
   // closest and listing the accepted ones (a typo must not become a default).
   // Members whose name starts with '_' are comments and are skipped.

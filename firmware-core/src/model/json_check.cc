@@ -110,6 +110,19 @@ std::size_t EditDistance(const std::string& a, const std::string& b) {
   return row[b.size()];
 }
 
+// "a, b, c" -> {"a", "b", "c"}
+std::vector<std::string> SplitNames(const std::string& list) {
+  std::vector<std::string> out;
+  std::size_t start = 0;
+  while (start <= list.size()) {
+    const std::size_t comma = list.find(", ", start);
+    out.push_back(list.substr(start, comma == std::string::npos ? std::string::npos : comma - start));
+    if (comma == std::string::npos) break;
+    start = comma + 2;
+  }
+  return out;
+}
+
 }  // namespace
 
 bool ParseJsonText(const std::string& text, const std::string& source, json* doc,
@@ -388,6 +401,66 @@ bool JsonCheck::ElementObject(const json& e, const std::string& path) {
   if (e.is_object()) return true;
   Add(path, "must be an object (got " + Describe(e) + ")");
   return false;
+}
+
+bool JsonCheck::Unit(const std::string& name, std::initializer_list<Quantity> accepted, const std::string& path,
+                     UnitConversion* out) {
+  std::string why;
+  if (accepted.size() == 1) {
+    if (LookUpUnitOf(name, *accepted.begin(), out, &why)) return true;
+    Add(path, why);
+    return false;
+  }
+  for (Quantity q : accepted) {
+    if (LookUpUnitOf(name, q, out, nullptr)) return true;
+  }
+  std::vector<std::string> names;
+  std::string wanted;
+  for (Quantity q : accepted) {
+    for (std::string& n : SplitNames(KnownUnitNames(q))) names.push_back(std::move(n));
+    if (!wanted.empty()) wanted += " or ";
+    wanted += QuantityName(q);
+  }
+  UnitConversion other;
+  if (LookUpUnit(name, &other, nullptr)) {
+    Add(path, "unit " + Quote(name) + " is a " + QuantityName(other.quantity) +
+                  " unit, expected a " + wanted + " unit (one of: " + ListNames(names) + ")");
+    return false;
+  }
+  std::string msg = "unknown " + wanted + " unit " + Quote(name);
+  const std::string hint = Closest(name, names);
+  if (!hint.empty()) msg += " (did you mean \"" + hint + "\"?)";
+  msg += "; unit names are case-sensitive; accepted: " + ListNames(names);
+  Add(path, msg);
+  return false;
+}
+
+Got JsonCheck::Qty(const json& obj, const char* key, const std::string& path, Need need,
+                   std::initializer_list<Quantity> accepted, double* si, UnitConversion* conv) {
+  const json* q = Present(obj, key, path, need, "a quantity {\"value\": number, \"unit\": name}");
+  if (q == nullptr) return Got::kAbsent;
+  const std::string qpath = Join(path, key);
+  if (!q->is_object()) {
+    Add(qpath, "must be a quantity {\"value\": number, \"unit\": \"name\"} (got " + Describe(*q) +
+                   ")");
+    return Got::kBad;
+  }
+  ExactKeys(*q, qpath, {"value", "unit"});
+  double value = 0.0;
+  std::string unit;
+  const Got gv = Number(*q, "value", qpath, Need::kRequired, &value);
+  const Got gu = String(*q, "unit", qpath, Need::kRequired, &unit);
+  if (gv != Got::kOk || gu != Got::kOk) return Got::kBad;
+  UnitConversion c;
+  if (!Unit(unit, accepted, Join(qpath, "unit"), &c)) return Got::kBad;
+  const double v = c.ToSi(value);
+  if (!std::isfinite(v)) {
+    Add(Join(qpath, "value"), "is out of range");
+    return Got::kBad;
+  }
+  *si = v;
+  if (conv != nullptr) *conv = c;
+  return Got::kOk;
 }
 
 void JsonCheck::ExactKeys(const json& obj, const std::string& path, const std::vector<std::string>& allowed) {
