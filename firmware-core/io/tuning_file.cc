@@ -103,11 +103,7 @@ class Checker {
 
   void Problem(const std::string& ptr, const std::string& message) { check_.Add(ptr, message); }
 
-  bool IsObject(const json& j, const std::string& ptr) {
-    if (j.is_object()) return true;
-    Problem(ptr, "must be an object");
-    return false;
-  }
+  bool IsObject(const json& j, const std::string& ptr) { return check_.ElementObject(j, ptr); }
 
   void Keys(const json& obj, const std::string& ptr, const std::vector<std::string>& allowed) {
     check_.ExactKeys(obj, ptr, allowed);
@@ -117,22 +113,13 @@ class Checker {
   // null reads as NaN where allowed (figures that do not apply).
   bool Number(const json& obj, const std::string& ptr, const char* key, double* out, bool required,
               bool null_ok = false) {
-    const std::string p = ptr + "/" + key;
-    auto it = obj.find(key);
-    if (it == obj.end()) {
-      if (required) Problem(p, "missing required field");
-      return !required;
-    }
-    if (it->is_null() && null_ok) {
+    const json* m = JsonCheck::Member(obj, key);
+    if (m != nullptr && m->is_null() && null_ok) {
       *out = kNaN;
       return true;
     }
-    if (!it->is_number()) {
-      Problem(p, "must be a number");
-      return false;
-    }
-    *out = it->get<double>();
-    return true;
+    const Got g = check_.Number(obj, key, ptr, required ? Need::kRequired : Need::kOptional, out);
+    return g == Got::kOk || (g == Got::kAbsent && !required);
   }
 
   bool Integer(const json& obj, const std::string& ptr, const char* key, int64_t* out) {
