@@ -8,6 +8,7 @@
 #include <cstddef>
 #include <initializer_list>
 #include <string>
+#include <string_view>
 #include <vector>
 
 #include <nlohmann/json.hpp>
@@ -36,6 +37,8 @@ std::string Num(double v);                  // "%.10g"
 std::string Quote(const std::string& s);    // "\"s\"", cut after 60 characters
 std::string Describe(const nlohmann::json& j);  // "a number (3)", "a string \"x\"", "an array" ...
 std::string ListNames(const std::vector<std::string>& names);  // "a, b, c"
+// Levenshtein distance, for "did you mean" (also used by the unit names).
+std::size_t EditDistance(std::string_view a, std::string_view b);
 // The candidate close enough to `name` to be a typo of it (or `name` plus a
 // unit suffix), or "".
 std::string Closest(const std::string& name, const std::vector<std::string>& candidates);

@@ -95,21 +95,6 @@ ConfigProblem ParseProblem(const std::string& source, const std::string& text, c
                        "parse error: " + (colon == std::string::npos ? what : what.substr(colon + 2)) + early};
 }
 
-std::size_t EditDistance(const std::string& a, const std::string& b) {
-  std::vector<std::size_t> row(b.size() + 1);
-  for (std::size_t j = 0; j <= b.size(); ++j) row[j] = j;
-  for (std::size_t i = 1; i <= a.size(); ++i) {
-    std::size_t diag = row[0];
-    row[0] = i;
-    for (std::size_t j = 1; j <= b.size(); ++j) {
-      const std::size_t up = row[j];
-      row[j] = std::min({row[j] + 1, row[j - 1] + 1, diag + (a[i - 1] == b[j - 1] ? 0u : 1u)});
-      diag = up;
-    }
-  }
-  return row[b.size()];
-}
-
 // "a, b, c" -> {"a", "b", "c"}
 std::vector<std::string> SplitNames(const std::string& list) {
   std::vector<std::string> out;
@@ -196,6 +181,21 @@ std::string ListNames(const std::vector<std::string>& names) {
     out += n;
   }
   return out;
+}
+
+std::size_t EditDistance(std::string_view a, std::string_view b) {
+  std::vector<std::size_t> row(b.size() + 1);
+  for (std::size_t j = 0; j <= b.size(); ++j) row[j] = j;
+  for (std::size_t i = 1; i <= a.size(); ++i) {
+    std::size_t diag = row[0];
+    row[0] = i;
+    for (std::size_t j = 1; j <= b.size(); ++j) {
+      const std::size_t up = row[j];
+      row[j] = std::min({row[j] + 1, row[j - 1] + 1, diag + (a[i - 1] == b[j - 1] ? 0u : 1u)});
+      diag = up;
+    }
+  }
+  return row[b.size()];
 }
 
 std::string Closest(const std::string& name, const std::vector<std::string>& candidates) {
