@@ -1,21 +1,17 @@
 #include "tuning_file.h"
 
-#include <cerrno>
 #include <cmath>
 #include <cstdio>
 #include <cstdlib>
-#include <cstring>
-#include <exception>
-#include <functional>
-#include <initializer_list>
-#include <set>
 #include <string>
 #include <vector>
 
 #include <nlohmann/json.hpp>
 
 #include "atomic_file.h"
+#include "holdfast/json_check.h"
 #include "holdfast/monitor.h"
+#include "json_file.h"
 #include "readings_csv.h"
 
 namespace holdfast {
@@ -25,17 +21,6 @@ using nlohmann::json;
 using ojson = nlohmann::ordered_json;
 
 constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
-
-// A JSON-pointer token (RFC 6901): '~' -> "~0", '/' -> "~1".
-std::string Token(const std::string& key) {
-  std::string out;
-  for (char c : key) {
-    if (c == '~') out += "~0";
-    else if (c == '/') out += "~1";
-    else out += c;
-  }
-  return out;
-}
 
 std::string Quote(const std::string& s) { return "\"" + s + "\""; }
 
@@ -111,112 +96,30 @@ ojson SegmentJson(const SegmentTuning& s) {
 // Reading
 // ---------------------------------------------------------------------------
 
-bool ReadTuningText(const std::string& path, std::string* text, std::string* why) {
-  std::FILE* f = std::fopen(path.c_str(), "rb");
-  if (f == nullptr) {
-    *why = std::strerror(errno);
-    return false;
-  }
-  char buf[65536];
-  size_t n = 0;
-  while ((n = std::fread(buf, 1, sizeof buf, f)) > 0) text->append(buf, n);
-  const bool failed = std::ferror(f) != 0;
-  const int err = errno;
-  std::fclose(f);
-  if (failed) {
-    *why = std::strerror(err);
-    return false;
-  }
-  return true;
-}
-
-// Reports duplicate keys in one object (a JSON parser keeps only the last,
-// which would silently drop a segment).
-class DuplicateKeys {
- public:
-  bool operator()(int /*depth*/, json::parse_event_t event, json& parsed) {
-    switch (event) {
-      case json::parse_event_t::object_start: frames_.push_back({false, 0, {}, {}}); break;
-      case json::parse_event_t::array_start: frames_.push_back({true, 0, {}, {}}); break;
-      case json::parse_event_t::key:
-        if (!frames_.empty() && parsed.is_string()) {
-          Frame& f = frames_.back();
-          f.key = parsed.get<std::string>();
-          if (!f.keys.insert(f.key).second) found.push_back(Pointer());
-        }
-        break;
-      case json::parse_event_t::value: Done(); break;
-      case json::parse_event_t::object_end:
-      case json::parse_event_t::array_end:
-        if (!frames_.empty()) frames_.pop_back();
-        Done();
-        break;
-    }
-    return true;
-  }
-  std::vector<std::string> found;  // JSON pointers of repeated keys
-
- private:
-  struct Frame {
-    bool is_array;
-    size_t index;
-    std::string key;
-    std::set<std::string> keys;
-  };
-  void Done() {
-    if (!frames_.empty() && frames_.back().is_array) ++frames_.back().index;
-  }
-  std::string Pointer() const {
-    std::string out;
-    for (const Frame& f : frames_) out += "/" + (f.is_array ? std::to_string(f.index) : Token(f.key));
-    return out;
-  }
-  std::vector<Frame> frames_;
-};
-
 // Collects problems as "file:pointer: message".
 class Checker {
  public:
-  Checker(const std::string& file, std::vector<std::string>* problems) : file_(file), problems_(problems) {}
+  Checker(const std::string& file, std::vector<ConfigProblem>* problems) : check_(problems, file) {}
 
-  void Problem(const std::string& ptr, const std::string& message) {
-    problems_->push_back(file_ + ":" + ptr + ": " + message);
-  }
+  void Problem(const std::string& ptr, const std::string& message) { check_.Add(ptr, message); }
 
-  bool IsObject(const json& j, const std::string& ptr) {
-    if (j.is_object()) return true;
-    Problem(ptr, "must be an object");
-    return false;
-  }
+  bool IsObject(const json& j, const std::string& ptr) { return check_.ElementObject(j, ptr); }
 
-  void Keys(const json& obj, const std::string& ptr, std::initializer_list<const char*> allowed) {
-    for (auto it = obj.begin(); it != obj.end(); ++it) {
-      bool known = false;
-      for (const char* a : allowed) known = known || it.key() == a;
-      if (!known) Problem(ptr + "/" + Token(it.key()), "unknown key");
-    }
+  void Keys(const json& obj, const std::string& ptr, const std::vector<std::string>& allowed) {
+    check_.ExactKeys(obj, ptr, allowed);
   }
 
   // A number. Missing: a problem when required, else *out keeps its value.
   // null reads as NaN where allowed (figures that do not apply).
   bool Number(const json& obj, const std::string& ptr, const char* key, double* out, bool required,
               bool null_ok = false) {
-    const std::string p = ptr + "/" + key;
-    auto it = obj.find(key);
-    if (it == obj.end()) {
-      if (required) Problem(p, "missing required field");
-      return !required;
-    }
-    if (it->is_null() && null_ok) {
+    const json* m = JsonCheck::Member(obj, key);
+    if (m != nullptr && m->is_null() && null_ok) {
       *out = kNaN;
       return true;
     }
-    if (!it->is_number()) {
-      Problem(p, "must be a number");
-      return false;
-    }
-    *out = it->get<double>();
-    return true;
+    const Got g = check_.Number(obj, key, ptr, required ? Need::kRequired : Need::kOptional, out);
+    return g == Got::kOk || (g == Got::kAbsent && !required);
   }
 
   bool Integer(const json& obj, const std::string& ptr, const char* key, int64_t* out) {
@@ -263,8 +166,7 @@ class Checker {
   }
 
  private:
-  std::string file_;
-  std::vector<std::string>* problems_;
+  JsonCheck check_;
 };
 
 void ReadSegment(Checker& c, const json& j, const std::string& ptr, SegmentTuning* s) {
@@ -341,11 +243,11 @@ void ReadSegment(Checker& c, const json& j, const std::string& ptr, SegmentTunin
   }
 }
 
-std::string Join(const std::vector<std::string>& lines) {
+std::string Join(const std::vector<ConfigProblem>& problems) {
   std::string out;
-  for (const std::string& l : lines) {
+  for (const ConfigProblem& p : problems) {
     if (!out.empty()) out += '\n';
-    out += l;
+    out += p.ToString();
   }
   return out;
 }
@@ -359,39 +261,16 @@ const SegmentTuning* TuningFile::Find(const std::string& segment_id) const {
 }
 
 bool LoadTuningFile(const std::string& path, const Site& site, TuningFile* file, std::string* why) {
-  std::vector<std::string> problems;
+  std::vector<ConfigProblem> problems;
   auto fail = [&] {
     if (why) *why = Join(problems);
     return false;
   };
-  std::string text, reason;
-  if (!ReadTuningText(path, &text, &reason)) {
-    problems.push_back(path + ": cannot read the file: " + reason);
-    return fail();
-  }
   json doc;
-  DuplicateKeys dup;
-  try {
-    doc = json::parse(text, std::ref(dup));
-  } catch (const json::parse_error& e) {
-    // nlohmann: "[json.exception.parse_error.101] parse error at line L, column C: reason"
-    const std::string what = e.what();
-    unsigned long line = 0, column = 0;
-    const size_t at = what.find("at line ");
-    std::string where = path;
-    if (at != std::string::npos && std::sscanf(what.c_str() + at, "at line %lu, column %lu", &line, &column) == 2)
-      where += ":" + std::to_string(line) + ":" + std::to_string(column);
-    const size_t colon = what.find(": ", at == std::string::npos ? 0 : at);
-    const std::string detail = colon == std::string::npos ? what : what.substr(colon + 2);
-    problems.push_back(where + ": parse error: " + detail +
-                       (e.byte >= text.size() ? " (the file ends early: is it truncated?)" : ""));
-    return fail();
-  } catch (const std::exception& e) {
-    problems.push_back(path + ": cannot parse the file: " + e.what());
-    return fail();
-  }
+  bool parsed = false;
+  ReadJsonFile(path, &doc, &problems, &parsed);  // a repeated key: reported, the rest still checked
+  if (!parsed) return fail();
   Checker c(path, &problems);
-  for (const std::string& p : dup.found) c.Problem(p, "duplicate key; JSON keeps only the last");
   if (!c.IsObject(doc, "")) return fail();
 
   TuningFile out;
@@ -425,7 +304,7 @@ bool LoadTuningFile(const std::string& path, const Site& site, TuningFile* file,
   } else if (c.IsObject(*segs, "/segments")) {
     if (segs->empty()) c.Problem("/segments", "no segments");
     for (auto it = segs->begin(); it != segs->end(); ++it) {
-      const std::string ptr = "/segments/" + Token(it.key());
+      const std::string ptr = json_text::Join("/segments", it.key());
       bool known = false;
       for (const SegmentSpec& spec : site.segments) known = known || spec.id == it.key();
       if (!known) {

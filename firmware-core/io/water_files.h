@@ -1,7 +1,8 @@
 // Water-utility mode files at the boundary: the annual water-balance input
 // ("holdfast-water-year/1", config/WATER.md) and a small JSON reader that
 // reports every problem with the file name and JSON pointer, the way the site
-// config does ("year.json:/system_input/0/volume_m3: must not be negative").
+// config does ("year.json:/system_input/0/volume_m3: must be ... (got -5)").
+// ReadJsonFile is in json_file.h.
 #pragma once
 
 #include <initializer_list>
@@ -10,37 +11,49 @@
 
 #include <nlohmann/json.hpp>
 
+#include "holdfast/json_check.h"
 #include "holdfast/site_config.h"
+#include "json_file.h"
 #include "holdfast/water.h"
 
 namespace holdfast {
 
-// Reads and parses a JSON file. Parse errors name line and column; duplicate
-// keys are reported. False (with problems) when the file is unusable.
-bool ReadJsonFile(const std::string& path, nlohmann::json* doc, std::vector<ConfigProblem>* problems);
-
-// Checked access to members of JSON objects. Paths are JSON pointers; every
-// problem is appended with the file name as prefix.
-class JsonChecker {
+// Checked access to members of JSON objects, on JsonCheck with `bool
+// required` and range wording. Paths are JSON pointers; every problem is
+// appended with the file name as prefix.
+class JsonChecker : private JsonCheck {
  public:
-  JsonChecker(std::string file, std::vector<ConfigProblem>* problems) : file_(std::move(file)), problems_(problems) {}
-  void Add(const std::string& path, const std::string& message);
+  JsonChecker(std::string file, std::vector<ConfigProblem>* problems)
+      : JsonCheck(problems, std::move(file)), start_(problems->size()) {}
+  using JsonCheck::Add;
   // Unknown keys are errors (with a suggestion); keys starting with '_' are comments.
-  void Keys(const nlohmann::json& obj, const std::string& path, std::initializer_list<const char*> allowed);
+  void Keys(const nlohmann::json& obj, const std::string& path, std::initializer_list<const char*> allowed) {
+    ExactKeys(obj, path, std::vector<std::string>(allowed.begin(), allowed.end()));
+  }
   // Each returns true when the member was present and good (*out set).
-  // `required`: a missing member is reported.
+  // `required`: a missing member is reported. Out of [lo, hi]: "must be
+  // <range_text> (got v)".
   bool Number(const nlohmann::json& obj, const char* key, const std::string& path, bool required, double* out,
               double lo = -1e300, double hi = 1e300, const char* range_text = nullptr);
-  bool String(const nlohmann::json& obj, const char* key, const std::string& path, bool required, std::string* out);
-  bool Bool(const nlohmann::json& obj, const char* key, const std::string& path, bool required, bool* out);
-  const nlohmann::json* Object(const nlohmann::json& obj, const char* key, const std::string& path, bool required);
-  const nlohmann::json* Array(const nlohmann::json& obj, const char* key, const std::string& path, bool required);
-  bool ok() const { return problems_->size() == start_; }
+  bool String(const nlohmann::json& obj, const char* key, const std::string& path, bool required, std::string* out) {
+    return JsonCheck::String(obj, key, path, NeedOf(required), out) == Got::kOk;
+  }
+  bool Bool(const nlohmann::json& obj, const char* key, const std::string& path, bool required, bool* out) {
+    return JsonCheck::Bool(obj, key, path, NeedOf(required), out) == Got::kOk;
+  }
+  const nlohmann::json* Object(const nlohmann::json& obj, const char* key, const std::string& path, bool required) {
+    const nlohmann::json* m = nullptr;
+    return JsonCheck::Object(obj, key, path, NeedOf(required), &m) == Got::kOk ? m : nullptr;
+  }
+  const nlohmann::json* Array(const nlohmann::json& obj, const char* key, const std::string& path, bool required) {
+    const nlohmann::json* m = nullptr;
+    return JsonCheck::Array(obj, key, path, NeedOf(required), &m) == Got::kOk ? m : nullptr;
+  }
+  bool ok() const { return problems()->size() == start_; }
 
  private:
-  std::string file_;
-  std::vector<ConfigProblem>* problems_;
-  size_t start_ = problems_->size();
+  static Need NeedOf(bool required) { return required ? Need::kRequired : Need::kOptional; }
+  size_t start_;
 };
 
 // "holdfast-water-year/1": the IWA water balance inputs of one district or

@@ -17,8 +17,10 @@
 #include <sstream>
 #include <thread>
 
+#include "holdfast/json_check.h"
 #include "holdfast/monitor.h"
 #include "instruments.h"
+#include "json_file.h"
 #include "readings_csv.h"
 #include "replay_driver.h"
 #include "scenario.h"
@@ -46,120 +48,55 @@ constexpr double kMinOnset_s = 1800.0;
 // Batch file
 // ---------------------------------------------------------------------------
 
-class BatchReader {
+// The batch file's readers: JsonCheck's, with `bool required` and numbers
+// checked against [lo, hi] ((lo, hi] when strict_lo); absent keeps *out.
+class BatchReader : public JsonCheck {
  public:
-  BatchReader(std::string file, std::vector<ConfigProblem>* problems) : file_(std::move(file)), problems_(problems) {}
+  BatchReader(std::string file, std::vector<ConfigProblem>* problems)
+      : JsonCheck(problems, std::move(file)), start_(problems->size()) {}
+  size_t count() const { return problems()->size() - start_; }
 
-  void Add(const std::string& path, const std::string& message) {
-    problems_->push_back(ConfigProblem{file_ + ":" + (path.empty() ? "/" : path), message});
-    ++count_;
-  }
-  int count() const { return count_; }
-
-  void Keys(const json& obj, const std::string& path, std::initializer_list<const char*> allowed) {
-    for (auto it = obj.begin(); it != obj.end(); ++it) {
-      if (!it.key().empty() && it.key()[0] == '_') continue;
-      bool ok = false;
-      for (const char* a : allowed) ok = ok || it.key() == a;
-      if (!ok) Add(path + "/" + it.key(), "unknown key");
-    }
-  }
-  // A number in [lo, hi] (inclusive unless strict); absent keeps *out.
+  using JsonCheck::Number;
+  using JsonCheck::Object;
   bool Number(const json& obj, const char* key, const std::string& path, bool required, double lo, double hi,
               double* out, bool strict_lo = false) {
-    const std::string p = path + "/" + key;
-    if (!obj.contains(key)) {
-      if (required) Add(p, "is required");
-      return false;
-    }
-    const json& v = obj[key];
-    if (!v.is_number()) {
-      Add(p, std::string("must be a number (got ") + v.type_name() + ")");
-      return false;
-    }
-    const double x = v.get<double>();
-    if (!std::isfinite(x) || x < lo || x > hi || (strict_lo && x == lo)) {
-      std::ostringstream m;
-      m << "must be in " << (strict_lo ? "(" : "[") << lo << ", " << hi << "] (got " << x << ")";
-      Add(p, m.str());
-      return false;
-    }
-    *out = x;
-    return true;
+    return Range(obj, key, path, required ? Need::kRequired : Need::kOptional, lo, hi, out, strict_lo) == Got::kOk;
   }
   bool Seed(const json& obj, const char* key, const std::string& path, uint64_t* out) {
     double v = 0.0;
     if (!Number(obj, key, path, false, 0.0, 9007199254740992.0, &v)) return false;
     if (v != std::floor(v)) {
-      Add(path + "/" + key, "must be an integer");
+      Add(json_text::Join(path, key), "must be an integer");
       return false;
     }
     *out = static_cast<uint64_t>(v);
     return true;
   }
+  // A required non-empty array of numbers; the good ones.
   std::vector<double> Numbers(const json& obj, const char* key, const std::string& path, double lo, double hi,
                               bool strict_lo) {
     std::vector<double> out;
-    const std::string p = path + "/" + key;
-    if (!obj.contains(key)) {
-      Add(p, "is required");
-      return out;
-    }
-    const json& a = obj[key];
-    if (!a.is_array() || a.empty()) {
+    const std::string p = json_text::Join(path, key);
+    const json* a = Present(obj, key, path, Need::kRequired, "a non-empty array of numbers");
+    if (a == nullptr) return out;
+    if (!a->is_array() || a->empty()) {
       Add(p, "must be a non-empty array of numbers");
       return out;
     }
-    for (size_t i = 0; i < a.size(); ++i) {
-      json holder = json::object();
-      holder["v"] = a[i];
+    for (size_t i = 0; i < a->size(); ++i) {
       double x = 0.0;
-      const size_t before = problems_->size();
-      if (Number(holder, "v", p + "/" + std::to_string(i), true, lo, hi, &x, strict_lo)) out.push_back(x);
-      // "/v" is an artefact of the holder: name the element itself.
-      for (size_t k = before; k < problems_->size(); ++k) {
-        std::string& path_text = (*problems_)[k].path;
-        const std::string tail = "/v";
-        if (path_text.size() > tail.size() && path_text.compare(path_text.size() - tail.size(), tail.size(), tail) == 0)
-          path_text.erase(path_text.size() - tail.size());
-      }
+      if (RangeValue((*a)[i], json_text::Join(p, i), lo, hi, &x, strict_lo) == Got::kOk) out.push_back(x);
     }
     return out;
   }
   const json* Object(const json& obj, const char* key, const std::string& path, bool required) {
-    if (!obj.contains(key)) {
-      if (required) Add(path + "/" + key, "is required");
-      return nullptr;
-    }
-    if (!obj[key].is_object()) {
-      Add(path + "/" + key, std::string("must be an object (got ") + obj[key].type_name() + ")");
-      return nullptr;
-    }
-    return &obj[key];
+    const json* m = nullptr;
+    return Object(obj, key, path, required ? Need::kRequired : Need::kOptional, &m) == Got::kOk ? m : nullptr;
   }
 
  private:
-  std::string file_;
-  std::vector<ConfigProblem>* problems_;
-  int count_ = 0;
+  size_t start_;
 };
-
-bool ReadJson(const std::string& path, json* doc, std::string* why) {
-  std::ifstream in(path, std::ios::binary);
-  if (!in) {
-    *why = "cannot open";
-    return false;
-  }
-  std::stringstream ss;
-  ss << in.rdbuf();
-  try {
-    *doc = json::parse(ss.str());
-  } catch (const json::parse_error& e) {
-    *why = std::string("parse error: ") + e.what();
-    return false;
-  }
-  return true;
-}
 
 // ---------------------------------------------------------------------------
 // Scenario documents for the runs
@@ -983,17 +920,15 @@ bool EvaluateOptions::IsValid(std::string* why) const {
 bool LoadBatchFile(const std::string& path, const Site& site, BatchSpec* b, std::vector<ConfigProblem>* problems) {
   BatchReader rd(path, problems);
   json doc;
-  std::string why;
-  if (!ReadJson(path, &doc, &why)) {
-    rd.Add("", why);
-    return false;
-  }
+  bool parsed = false;
+  const bool unique_keys = ReadJsonFile(path, &doc, problems, &parsed);
+  if (!parsed) return false;
   if (!doc.is_object()) {
     rd.Add("", "the batch must be a JSON object");
     return false;
   }
   b->path = path;
-  rd.Keys(doc, "", {"format", "name", "scenario", "time_step_s", "budget_days", "tuning", "leak_free", "grid",
+  rd.ExactKeys(doc, "", {"format", "name", "scenario", "time_step_s", "budget_days", "tuning", "leak_free", "grid",
                     "baseline", "ruptures", "instrument_families", "instrument_set_seed",
                     "meter_drift_pct_per_day"});
   if (!doc.contains("format") || doc["format"] != BatchFormatVersion())
@@ -1011,8 +946,9 @@ bool LoadBatchFile(const std::string& path, const Site& site, BatchSpec* b, std:
     if (sp.is_relative()) sp = std::filesystem::path(path).parent_path() / sp;
     b->scenario_path = sp.string();
     json sdoc;
-    if (!ReadJson(b->scenario_path, &sdoc, &why)) {
-      rd.Add("/scenario", b->scenario_path + ": " + why);
+    std::vector<ConfigProblem> read_problems;
+    if (!ReadJsonFile(b->scenario_path, &sdoc, &read_problems)) {
+      for (const ConfigProblem& p : read_problems) rd.Add("/scenario", p.ToString());
     } else if (!sdoc.is_object()) {
       rd.Add("/scenario", b->scenario_path + ": not a JSON object");
     } else {
@@ -1059,13 +995,13 @@ bool LoadBatchFile(const std::string& path, const Site& site, BatchSpec* b, std:
   }
 
   if (const json* t = rd.Object(doc, "tuning", "", false)) {
-    rd.Keys(*t, "/tuning", {"days", "seed"});
+    rd.ExactKeys(*t, "/tuning", {"days", "seed"});
     rd.Number(*t, "days", "/tuning", false, 0.25, 365.0, &b->tuning_days);
     rd.Seed(*t, "seed", "/tuning", &b->tuning_seed);
   }
   if (const json* lf = rd.Object(doc, "leak_free", "", true)) {
     const std::string p = "/leak_free";
-    rd.Keys(*lf, p, {"days", "seed", "daily_operations", "shut_in_every_days", "shut_in_at_s", "shut_in_s",
+    rd.ExactKeys(*lf, p, {"days", "seed", "daily_operations", "shut_in_every_days", "shut_in_at_s", "shut_in_s",
                      "inlet_daily_spread_k"});
     rd.Number(*lf, "days", p, false, 1.0, 3650.0, &b->leak_free_days);
     rd.Seed(*lf, "seed", p, &b->leak_free_seed);
@@ -1092,7 +1028,7 @@ bool LoadBatchFile(const std::string& path, const Site& site, BatchSpec* b, std:
   }
   if (const json* g = rd.Object(doc, "grid", "", true)) {
     const std::string p = "/grid";
-    rd.Keys(*g, p, {"leak_fractions_pct", "chainages_m", "onsets_s", "onset_hours", "lead_s",
+    rd.ExactKeys(*g, p, {"leak_fractions_pct", "chainages_m", "onsets_s", "onset_hours", "lead_s",
                     "onsets_during_operations", "design", "seeds", "ramp_s", "observe_s"});
     for (double pct : rd.Numbers(*g, "leak_fractions_pct", p, 0.0, 100.0, true)) b->leak_fractions.push_back(pct / 100.0);
     const double length = b->segment >= 0 ? site.segments[static_cast<size_t>(b->segment)].length_m() : kInf;
@@ -1132,7 +1068,7 @@ bool LoadBatchFile(const std::string& path, const Site& site, BatchSpec* b, std:
   }
   if (const json* ru = rd.Object(doc, "ruptures", "", false)) {
     const std::string p = "/ruptures";
-    rd.Keys(*ru, p, {"fractions_pct", "ramp_s", "observe_s"});
+    rd.ExactKeys(*ru, p, {"fractions_pct", "ramp_s", "observe_s"});
     for (double pct : rd.Numbers(*ru, "fractions_pct", p, 0.0, 100.0, true)) b->rupture_fractions.push_back(pct / 100.0);
     rd.Number(*ru, "ramp_s", p, false, 0.0, 600.0, &b->rupture_ramp_s);
     rd.Number(*ru, "observe_s", p, false, 300.0, kDay_s, &b->rupture_observe_s);
@@ -1157,10 +1093,10 @@ bool LoadBatchFile(const std::string& path, const Site& site, BatchSpec* b, std:
     if (!b->families.empty()) b->family = b->families.front();
   }
   if (const json* bl = rd.Object(doc, "baseline", "", false)) {
-    rd.Keys(*bl, "/baseline", {"windows_s"});
+    rd.ExactKeys(*bl, "/baseline", {"windows_s"});
     b->baseline_windows_s = rd.Numbers(*bl, "windows_s", "/baseline", 60.0, 7.0 * kDay_s, false);
   }
-  return rd.count() == 0;
+  return rd.count() == 0 && unique_keys;
 }
 
 bool RunEvaluation(const Site& site, const BatchSpec& b, const EvaluateOptions& options, EvaluationResult* r,

@@ -20,6 +20,9 @@
 
 #include <nlohmann/json.hpp>
 
+#include "holdfast/json_check.h"
+
+#include "json_file.h"
 #include "readings_csv.h"
 
 namespace holdfast::sim {
@@ -30,94 +33,9 @@ using nlohmann::json;
 constexpr const char* kFormat = "holdfast-scenario/1";
 constexpr double kMaxSeed = 9007199254740992.0;  // 2^53: exact in a JSON number
 
-// --- Paths and wording (as in the site compiler) -------------------------------
+// --- Wording (holdfast/json_check.h) ---------------------------------------------
 
-std::string Token(const std::string& key) {
-  std::string out;
-  for (char c : key) {
-    if (c == '~') {
-      out += "~0";
-    } else if (c == '/') {
-      out += "~1";
-    } else {
-      out += c;
-    }
-  }
-  return out;
-}
-std::string Join(const std::string& path, const std::string& key) { return path + "/" + Token(key); }
-std::string Join(const std::string& path, size_t index) { return path + "/" + std::to_string(index); }
-
-std::string Num(double v) {
-  char buf[32];
-  std::snprintf(buf, sizeof buf, "%.10g", v);
-  return buf;
-}
-
-std::string Quote(const std::string& s) {
-  constexpr size_t kMax = 60;
-  return s.size() <= kMax ? "\"" + s + "\"" : "\"" + s.substr(0, kMax) + "...\"";
-}
-
-std::string Describe(const json& j) {
-  switch (j.type()) {
-    case json::value_t::null: return "null";
-    case json::value_t::boolean: return std::string("a boolean (") + (j.get<bool>() ? "true" : "false") + ")";
-    case json::value_t::number_integer:
-    case json::value_t::number_unsigned:
-    case json::value_t::number_float: return "a number (" + Num(j.get<double>()) + ")";
-    case json::value_t::string: return "a string " + Quote(j.get_ref<const std::string&>());
-    case json::value_t::array: return "an array";
-    case json::value_t::object: return "an object";
-    default: return j.type_name();
-  }
-}
-
-size_t EditDistance(const std::string& a, const std::string& b) {
-  std::vector<size_t> row(b.size() + 1);
-  for (size_t j = 0; j <= b.size(); ++j) row[j] = j;
-  for (size_t i = 1; i <= a.size(); ++i) {
-    size_t diag = row[0];
-    row[0] = i;
-    for (size_t j = 1; j <= b.size(); ++j) {
-      const size_t up = row[j];
-      row[j] = std::min({row[j] + 1, row[j - 1] + 1, diag + (a[i - 1] == b[j - 1] ? 0u : 1u)});
-      diag = up;
-    }
-  }
-  return row[b.size()];
-}
-
-std::string Closest(const std::string& name, const std::vector<std::string>& candidates) {
-  std::string best;
-  size_t best_d = 0;
-  for (const std::string& c : candidates) {
-    const size_t d = EditDistance(name, c);
-    if (best.empty() || d < best_d) {
-      best = c;
-      best_d = d;
-    }
-  }
-  const size_t limit = std::max<size_t>(1, std::min<size_t>(3, name.size() / 3));
-  if (!best.empty() && best_d <= limit) return best;
-  if (name.size() >= 3) {  // a name missing its unit suffix
-    for (const std::string& c : candidates)
-      if (c.size() > name.size() && c.compare(0, name.size(), name) == 0 && c[name.size()] == '_') return c;
-  }
-  return std::string();
-}
-
-std::string ListNames(const std::vector<std::string>& names) {
-  std::string out;
-  for (const std::string& n : names) {
-    if (!out.empty()) out += ", ";
-    out += n;
-  }
-  return out;
-}
-
-enum class Need { kRequired, kOptional };
-enum class Got { kAbsent, kBad, kOk };
+using namespace json_text;
 
 double ElevationAt(const std::vector<ElevationPoint>& profile, double x) {
   if (profile.empty()) return 0.0;
@@ -140,191 +58,20 @@ struct PendingRamps {
   }
 };
 
-class Compiler {
+// The member readers (Number, Range, Enum, ExactKeys ...) are JsonCheck's.
+class Compiler : private JsonCheck {
  public:
   Compiler(const Site& site, Scenario* sc, std::vector<ConfigProblem>* problems)
-      : site_(site), sc_(sc), problems_(problems) {}
+      : JsonCheck(problems), site_(site), sc_(sc), problems_(problems) {}
   void Run(const json& doc);
 
  private:
-  void Add(const std::string& path, const std::string& message) { problems_->push_back(ConfigProblem{path, message}); }
-
-  const json* Member(const json& obj, const char* key) const {
-    auto it = obj.find(key);
-    return it == obj.end() ? nullptr : &*it;
-  }
-  const json* Present(const json& obj, const char* key, const std::string& path, Need need, const char* expected) {
-    const json* m = Member(obj, key);
-    if (m == nullptr && need == Need::kRequired)
-      Add(Join(path, key), std::string("missing required field \"") + key + "\" (" + expected + ")");
-    return m;
-  }
-  Got Number(const json& obj, const char* key, const std::string& path, Need need, double* out) {
-    const json* m = Present(obj, key, path, need, "a number");
-    if (m == nullptr) return Got::kAbsent;
-    if (!m->is_number()) {
-      Add(Join(path, key), "must be a number (got " + Describe(*m) + ")");
-      return Got::kBad;
-    }
-    const double v = m->get<double>();
-    if (!std::isfinite(v)) {
-      Add(Join(path, key), "must be a finite number");
-      return Got::kBad;
-    }
-    *out = v;
-    return Got::kOk;
-  }
-  // A number in [lo, hi] (either bound may be open).
-  Got Range(const json& obj, const char* key, const std::string& path, Need need, double lo, bool lo_open, double hi,
-            bool hi_open, double* out) {
-    double v = 0.0;
-    const Got g = Number(obj, key, path, need, &v);
-    if (g != Got::kOk) return g;
-    const bool below = lo_open ? !(v > lo) : !(v >= lo);
-    const bool above = hi_open ? !(v < hi) : !(v <= hi);
-    if (below || above) {
-      std::string what;
-      if (std::isinf(hi) && lo == 0.0) {
-        what = lo_open ? "must be positive" : "must not be negative";
-      } else {
-        what = std::string("must be in ") + (lo_open ? "(" : "[") + Num(lo) + ", " + (std::isinf(hi) ? "inf" : Num(hi)) +
-               (hi_open ? ")" : "]");
-      }
-      Add(Join(path, key), what + " (got " + Num(v) + ")");
-      return Got::kBad;
-    }
-    *out = v;
-    return Got::kOk;
-  }
-  Got Positive(const json& obj, const char* key, const std::string& path, Need need, double* out) {
-    return Range(obj, key, path, need, 0.0, true, kInfinity, true, out);
-  }
-  Got NonNegative(const json& obj, const char* key, const std::string& path, Need need, double* out) {
-    return Range(obj, key, path, need, 0.0, false, kInfinity, true, out);
-  }
-  Got Bool(const json& obj, const char* key, const std::string& path, Need need, bool* out) {
-    const json* m = Present(obj, key, path, need, "true or false");
-    if (m == nullptr) return Got::kAbsent;
-    if (!m->is_boolean()) {
-      Add(Join(path, key), "must be true or false (got " + Describe(*m) + ")");
-      return Got::kBad;
-    }
-    *out = m->get<bool>();
-    return Got::kOk;
-  }
-  Got String(const json& obj, const char* key, const std::string& path, Need need, std::string* out,
-             const std::string& expected = "a string") {
-    const json* m = Present(obj, key, path, need, expected.c_str());
-    if (m == nullptr) return Got::kAbsent;
-    if (!m->is_string()) {
-      Add(Join(path, key), "must be a string (got " + Describe(*m) + ")");
-      return Got::kBad;
-    }
-    if (m->get_ref<const std::string&>().empty()) {
-      Add(Join(path, key), "must not be empty");
-      return Got::kBad;
-    }
-    *out = m->get<std::string>();
-    return Got::kOk;
-  }
-  Got Choice(const json& obj, const char* key, const std::string& path, Need need, const std::vector<std::string>& names,
-             std::string* out) {
-    std::string v;
-    const Got g = String(obj, key, path, need, &v, "one of: " + ListNames(names));
-    if (g != Got::kOk) return g;
-    if (std::find(names.begin(), names.end(), v) != names.end()) {
-      *out = v;
-      return Got::kOk;
-    }
-    std::string msg = std::string("unknown ") + key + " " + Quote(v);
-    const std::string hint = Closest(v, names);
-    if (!hint.empty()) msg += " (did you mean \"" + hint + "\"?)";
-    Add(Join(path, key), msg + "; accepted: " + ListNames(names));
-    return Got::kBad;
-  }
-  Got Object(const json& obj, const char* key, const std::string& path, Need need, const json** out) {
-    const json* m = Present(obj, key, path, need, "an object");
-    if (m == nullptr) return Got::kAbsent;
-    if (!m->is_object()) {
-      Add(Join(path, key), "must be an object (got " + Describe(*m) + ")");
-      return Got::kBad;
-    }
-    *out = m;
-    return Got::kOk;
-  }
-  Got Array(const json& obj, const char* key, const std::string& path, Need need, const json** out) {
-    const json* m = Present(obj, key, path, need, "an array");
-    if (m == nullptr) return Got::kAbsent;
-    if (!m->is_array()) {
-      Add(Join(path, key), "must be an array (got " + Describe(*m) + ")");
-      return Got::kBad;
-    }
-    *out = m;
-    return Got::kOk;
-  }
-  bool ElementObject(const json& e, const std::string& path) {
-    if (e.is_object()) return true;
-    Add(path, "must be an object (got " + Describe(e) + ")");
-    return false;
-  }
-  void CheckKeys(const json& obj, const std::string& path, const std::vector<std::string>& allowed) {
-    for (auto it = obj.begin(); it != obj.end(); ++it) {
-      const std::string& key = it.key();
-      if (!key.empty() && key[0] == '_') continue;
-      if (std::find(allowed.begin(), allowed.end(), key) != allowed.end()) continue;
-      std::string msg = "unknown key " + Quote(key);
-      const std::string hint = Closest(key, allowed);
-      if (!hint.empty()) msg += " (did you mean \"" + hint + "\"?)";
-      Add(Join(path, key), msg + "; accepted here: " + ListNames(allowed));
-    }
-  }
-  // {"value": v, "unit": u} of one of `accepted`; `quantity` gets which.
-  Got Qty(const json& obj, const char* key, const std::string& path, Need need, std::initializer_list<Quantity> accepted,
-          double* si, Quantity* quantity = nullptr) {
-    const json* q = Present(obj, key, path, need, "a quantity {\"value\": number, \"unit\": name}");
-    if (q == nullptr) return Got::kAbsent;
-    const std::string qpath = Join(path, key);
-    if (!q->is_object()) {
-      Add(qpath, "must be a quantity {\"value\": number, \"unit\": \"name\"} (got " + Describe(*q) + ")");
-      return Got::kBad;
-    }
-    CheckKeys(*q, qpath, {"value", "unit"});
-    double value = 0.0;
-    std::string unit;
-    const Got gv = Number(*q, "value", qpath, Need::kRequired, &value);
-    const Got gu = String(*q, "unit", qpath, Need::kRequired, &unit);
-    if (gv != Got::kOk || gu != Got::kOk) return Got::kBad;
-    UnitConversion c;
-    bool found = false;
-    for (Quantity a : accepted) {
-      if (LookUpUnitOf(unit, a, &c, nullptr)) {
-        found = true;
-        break;
-      }
-    }
-    if (!found) {
-      std::string wanted, why;
-      for (Quantity a : accepted) wanted += (wanted.empty() ? "" : " or ") + std::string(QuantityName(a));
-      if (accepted.size() == 1) {
-        LookUpUnitOf(unit, *accepted.begin(), &c, &why);
-        Add(Join(qpath, "unit"), why);
-      } else {
-        std::string names;
-        for (Quantity a : accepted) names += (names.empty() ? "" : ", ") + KnownUnitNames(a);
-        Add(Join(qpath, "unit"), "unit " + Quote(unit) + " is not a " + wanted + " unit (accepted: " + names + ")");
-      }
-      return Got::kBad;
-    }
-    *si = c.ToSi(value);
-    if (quantity != nullptr) *quantity = c.quantity;
-    return Got::kOk;
-  }
   // A flow quantity (mass or volume); `is_volume` says which.
   Got Flow(const json& obj, const char* key, const std::string& path, Need need, double* si, bool* is_volume) {
-    Quantity q = Quantity::kMassFlow;
-    const Got g = Qty(obj, key, path, need, {Quantity::kMassFlow, Quantity::kVolumeFlow}, si, &q);
+    UnitConversion c;
+    const Got g = Qty(obj, key, path, need, {Quantity::kMassFlow, Quantity::kVolumeFlow}, si, &c);
     if (g == Got::kOk) {
-      *is_volume = q == Quantity::kVolumeFlow;
+      *is_volume = c.quantity == Quantity::kVolumeFlow;
       if (*si < 0.0) {
         Add(Join(Join(path, key), "value"), "a flow must not be negative (got " + Num(*si) + " in SI)");
         return Got::kBad;
@@ -341,7 +88,7 @@ class Compiler {
       const std::string wp = Join(apath, i);
       const json& w = (*arr)[i];
       if (!ElementObject(w, wp)) continue;
-      CheckKeys(w, wp, {"from_s", "to_s"});
+      ExactKeys(w, wp, {"from_s", "to_s"});
       TimeWindow tw;
       const Got a = NonNegative(w, "from_s", wp, Need::kRequired, &tw.from_s);
       const Got b = NonNegative(w, "to_s", wp, Need::kRequired, &tw.to_s);
@@ -389,7 +136,7 @@ void Compiler::Run(const json& doc) {
     Add("", std::string("the document must be a JSON object with \"format\": \"") + kFormat + "\" (got " + Describe(doc) + ")");
     return;
   }
-  CheckKeys(doc, "", {"format", "name", "segment", "start", "duration_s", "seed", "instrument_set_seed", "time_step_s", "wave_speed_tolerance_pct",
+  ExactKeys(doc, "", {"format", "name", "segment", "start", "duration_s", "seed", "instrument_set_seed", "time_step_s", "wave_speed_tolerance_pct",
                       "property_step_s", "mass_fixer", "truth_every_s", "upstream", "downstream", "laterals", "operations",
                       "leaks", "temperature", "instrument_defaults", "instruments"});
   std::string format;
@@ -455,7 +202,7 @@ void Compiler::CompileTop(const json& doc) {
   }
   Positive(doc, "duration_s", "", Need::kRequired, &sc_->duration_s);
   double seed = 1.0;
-  if (Range(doc, "seed", "", Need::kOptional, 0.0, false, kMaxSeed, false, &seed) == Got::kOk) {
+  if (Range(doc, "seed", "", Need::kOptional, 0.0, kMaxSeed, &seed) == Got::kOk) {
     if (seed != std::floor(seed)) {
       Add("/seed", "must be a whole number (got " + Num(seed) + ")");
     } else {
@@ -464,7 +211,7 @@ void Compiler::CompileTop(const json& doc) {
   }
   sc_->instrument_set_seed = sc_->seed;
   double set_seed = 0.0;
-  if (Range(doc, "instrument_set_seed", "", Need::kOptional, 0.0, false, kMaxSeed, false, &set_seed) == Got::kOk) {
+  if (Range(doc, "instrument_set_seed", "", Need::kOptional, 0.0, kMaxSeed, &set_seed) == Got::kOk) {
     if (set_seed != std::floor(set_seed)) {
       Add("/instrument_set_seed", "must be a whole number (got " + Num(set_seed) + ")");
     } else {
@@ -474,7 +221,7 @@ void Compiler::CompileTop(const json& doc) {
   MocSetup& m = sc_->moc;
   Positive(doc, "time_step_s", "", Need::kOptional, &m.time_step_hint_s);
   double tol_pct = 100.0 * m.wave_speed_tolerance;
-  if (Range(doc, "wave_speed_tolerance_pct", "", Need::kOptional, 0.0, true, 20.0, false, &tol_pct) == Got::kOk)
+  if (Range(doc, "wave_speed_tolerance_pct", "", Need::kOptional, 0.0, 20.0, &tol_pct, true, false) == Got::kOk)
     m.wave_speed_tolerance = tol_pct / 100.0;
   Positive(doc, "property_step_s", "", Need::kOptional, &m.property_step_s);
   Bool(doc, "mass_fixer", "", Need::kOptional, &m.mass_fixer);
@@ -487,16 +234,16 @@ void Compiler::CompileUpstream(const json& doc) {
   const std::string path = "/upstream";
   UpstreamSetup& u = sc_->moc.upstream;
   std::string type;
-  if (Choice(*up, "type", path, Need::kRequired, {"reservoir", "pump", "flow"}, &type) != Got::kOk) return;
+  if (Enum(*up, "type", path, Need::kRequired, {"reservoir", "pump", "flow"}, &type) != Got::kOk) return;
   char buf[256];
   if (type == "reservoir") {
-    CheckKeys(*up, path, {"type", "head_m"});
+    ExactKeys(*up, path, {"type", "head_m"});
     u.type = UpstreamType::kReservoir;
     double head = 0.0;
     if (Number(*up, "head_m", path, Need::kRequired, &head) == Got::kOk) u.head_m.Set(head);
     std::snprintf(buf, sizeof buf, "reservoir, head %.2f m", head);
   } else if (type == "pump") {
-    CheckKeys(*up, path, {"type", "suction_head_m", "shutoff_head_m", "rated_flow", "rated_head_m", "speed", "check_valve"});
+    ExactKeys(*up, path, {"type", "suction_head_m", "shutoff_head_m", "rated_flow", "rated_head_m", "speed", "check_valve"});
     u.type = UpstreamType::kPump;
     double suction = 0.0, h0 = 0.0, hr = 0.0, qr = 0.0, speed = 1.0;
     if (Number(*up, "suction_head_m", path, Need::kRequired, &suction) == Got::kOk) u.head_m.Set(suction);
@@ -510,12 +257,12 @@ void Compiler::CompileUpstream(const json& doc) {
       u.shutoff_head_m = h0;
       u.curve_c_s2_m5 = (h0 - hr) / (qr * qr);  // H = s^2 H0 - c Q^2 through the rated point
     }
-    if (Range(*up, "speed", path, Need::kOptional, 0.0, false, 1.5, false, &speed) == Got::kOk) u.speed.Set(speed);
+    if (Range(*up, "speed", path, Need::kOptional, 0.0, 1.5, &speed) == Got::kOk) u.speed.Set(speed);
     Bool(*up, "check_valve", path, Need::kOptional, &u.check_valve);
     std::snprintf(buf, sizeof buf, "pump, suction head %.2f m, H = s^2 * %.1f m - %.1f s2/m5 * Q^2 (rated %.1f m at %.2f m3/h)",
                   suction, h0, u.curve_c_s2_m5, hr, qr * 3600.0);
   } else {
-    CheckKeys(*up, path, {"type", "flow"});
+    ExactKeys(*up, path, {"type", "flow"});
     u.type = UpstreamType::kFlow;
     double q = 0.0;
     if (Flow(*up, "flow", path, Need::kRequired, &q, &u.flow_is_volume) == Got::kOk) u.flow.Set(q);
@@ -526,7 +273,7 @@ void Compiler::CompileUpstream(const json& doc) {
 }
 
 void Compiler::CompileValve(const json& v, const std::string& path, DownstreamSetup* dn) {
-  CheckKeys(v, path, {"cda_m2", "pressure_drop", "at_flow", "opening"});
+  ExactKeys(v, path, {"cda_m2", "pressure_drop", "at_flow", "opening"});
   const bool has_cda = Member(v, "cda_m2") != nullptr;
   const bool has_drop = Member(v, "pressure_drop") != nullptr || Member(v, "at_flow") != nullptr;
   if (has_cda == has_drop) {
@@ -549,7 +296,7 @@ void Compiler::CompileValve(const json& v, const std::string& path, DownstreamSe
     }
   }
   double opening = 1.0;
-  if (Range(v, "opening", path, Need::kOptional, 0.0, false, 1.0, false, &opening) == Got::kOk) dn->opening.Set(opening);
+  if (Range(v, "opening", path, Need::kOptional, 0.0, 1.0, &opening) == Got::kOk) dn->opening.Set(opening);
 }
 
 void Compiler::CompileDownstream(const json& doc) {
@@ -558,19 +305,19 @@ void Compiler::CompileDownstream(const json& doc) {
   const std::string path = "/downstream";
   DownstreamSetup& d = sc_->moc.downstream;
   std::string type;
-  if (Choice(*dn, "type", path, Need::kRequired, {"reservoir", "tank", "flow"}, &type) != Got::kOk) return;
+  if (Enum(*dn, "type", path, Need::kRequired, {"reservoir", "tank", "flow"}, &type) != Got::kOk) return;
   char buf[256];
   buf[0] = 0;
   const json* valve = nullptr;
   if (type == "reservoir") {
-    CheckKeys(*dn, path, {"type", "head_m", "valve"});
+    ExactKeys(*dn, path, {"type", "head_m", "valve"});
     d.type = DownstreamType::kReservoir;
     double head = 0.0;
     if (Number(*dn, "head_m", path, Need::kRequired, &head) == Got::kOk) d.head_m.Set(head);
     if (Object(*dn, "valve", path, Need::kOptional, &valve) == Got::kOk) CompileValve(*valve, path + "/valve", &d);
     std::snprintf(buf, sizeof buf, "reservoir, head %.2f m", head);
   } else if (type == "tank") {
-    CheckKeys(*dn, path,
+    ExactKeys(*dn, path,
               {"type", "tank", "initial_level_m", "base_elevation_m", "outflow", "level_control", "contents_temperature",
                "initial_temperature", "valve"});
     d.type = DownstreamType::kTank;
@@ -602,7 +349,7 @@ void Compiler::CompileDownstream(const json& doc) {
     const json* lc = nullptr;
     if (Object(*dn, "level_control", path, Need::kOptional, &lc) == Got::kOk) {
       const std::string lpath = path + "/level_control";
-      CheckKeys(*lc, lpath, {"setpoint_m", "gain_per_m"});
+      ExactKeys(*lc, lpath, {"setpoint_m", "gain_per_m"});
       double sp = 0.0, gain = 0.0;
       bool gain_volume = false;
       if (NonNegative(*lc, "setpoint_m", lpath, Need::kRequired, &sp) == Got::kOk) {
@@ -619,7 +366,7 @@ void Compiler::CompileDownstream(const json& doc) {
       }
     }
     std::string mode = "mixed";
-    Choice(*dn, "contents_temperature", path, Need::kOptional, {"mixed", "arriving"}, &mode);
+    Enum(*dn, "contents_temperature", path, Need::kOptional, {"mixed", "arriving"}, &mode);
     d.tank_mixed = mode == "mixed";
     Qty(*dn, "initial_temperature", path, Need::kOptional, {Quantity::kTemperature}, &d.tank_initial_temperature_k);
     if (Object(*dn, "valve", path, Need::kOptional, &valve) == Got::kOk) CompileValve(*valve, path + "/valve", &d);
@@ -627,7 +374,7 @@ void Compiler::CompileDownstream(const json& doc) {
                   tank_index_ >= 0 ? seg_->tanks[static_cast<size_t>(tank_index_)].id.c_str() : "?", level,
                   d.tank_base_elevation_m, mode.c_str());
   } else {
-    CheckKeys(*dn, path, {"type", "flow"});
+    ExactKeys(*dn, path, {"type", "flow"});
     d.type = DownstreamType::kFlow;
     double q = 0.0;
     if (Flow(*dn, "flow", path, Need::kRequired, &q, &d.flow_is_volume) == Got::kOk) d.flow.Set(q);
@@ -681,7 +428,7 @@ void Compiler::CompileLaterals(const json& doc) {
       continue;
     }
     if (!ElementObject(it.value(), path)) continue;
-    CheckKeys(it.value(), path, {"flow"});
+    ExactKeys(it.value(), path, {"flow"});
     LateralSetup& l = sc_->moc.laterals[static_cast<size_t>(found->second)];
     double q = 0.0;
     if (Flow(it.value(), "flow", path, Need::kRequired, &q, &l.flow_is_volume) == Got::kOk) l.flow.Set(q);
@@ -693,7 +440,7 @@ void Compiler::CompileTemperature(const json& doc) {
   const json* t = nullptr;
   if (Object(doc, "temperature", "", Need::kRequired, &t) != Got::kOk) return;
   const std::string path = "/temperature";
-  CheckKeys(*t, path, {"inlet", "swing", "ground", "thermal_time_constant_s", "parcel_spacing_m", "initial_line"});
+  ExactKeys(*t, path, {"inlet", "swing", "ground", "thermal_time_constant_s", "parcel_spacing_m", "initial_line"});
   MocSetup& m = sc_->moc;
   TemperatureSchedule& ts = m.inlet_temperature;
   const json* inlet = Present(*t, "inlet", path, Need::kRequired, "a temperature quantity or a schedule");
@@ -705,7 +452,7 @@ void Compiler::CompileTemperature(const json& doc) {
         const std::string pp = Join(ip, i);
         const json& e = (*inlet)[i];
         if (!ElementObject(e, pp)) continue;
-        CheckKeys(e, pp, {"at_s", "value"});
+        ExactKeys(e, pp, {"at_s", "value"});
         double at = 0.0, v = 0.0;
         const Got ga = NonNegative(e, "at_s", pp, Need::kRequired, &at);
         const Got gv = Qty(e, "value", pp, Need::kRequired, {Quantity::kTemperature}, &v);
@@ -727,7 +474,7 @@ void Compiler::CompileTemperature(const json& doc) {
   const json* swing = nullptr;
   if (Object(*t, "swing", path, Need::kOptional, &swing) == Got::kOk) {
     const std::string sp = path + "/swing";
-    CheckKeys(*swing, sp, {"amplitude_k", "period_s", "phase_s"});
+    ExactKeys(*swing, sp, {"amplitude_k", "period_s", "phase_s"});
     NonNegative(*swing, "amplitude_k", sp, Need::kRequired, &ts.swing_amplitude_k);
     Positive(*swing, "period_s", sp, Need::kRequired, &ts.swing_period_s);
     Number(*swing, "phase_s", sp, Need::kOptional, &ts.swing_phase_s);
@@ -750,7 +497,7 @@ void Compiler::CompileLeaks(const json& doc) {
     const std::string path = Join("/leaks", i);
     const json& e = (*arr)[i];
     if (!ElementObject(e, path)) continue;
-    CheckKeys(e, path, {"chainage_m", "onset_s", "ramp_s", "rate", "fraction_of_nominal_flow", "cda_m2", "orifice_diameter_mm",
+    ExactKeys(e, path, {"chainage_m", "onset_s", "ramp_s", "rate", "fraction_of_nominal_flow", "cda_m2", "orifice_diameter_mm",
                         "discharge_coefficient"});
     LeakSetup l;
     LeakPlan plan;
@@ -775,7 +522,7 @@ void Compiler::CompileLeaks(const json& doc) {
       }
     } else if (Member(e, "fraction_of_nominal_flow") != nullptr) {
       double f = 0.0;
-      if (Range(e, "fraction_of_nominal_flow", path, Need::kRequired, 0.0, false, 1.0, false, &f) == Got::kOk) {
+      if (Range(e, "fraction_of_nominal_flow", path, Need::kRequired, 0.0, 1.0, &f) == Got::kOk) {
         if (!std::isfinite(seg_->nominal_flow_kg_s)) {
           Add(path + "/fraction_of_nominal_flow", "segment " + Quote(seg_->id) + " has no nominal_flow to take a fraction of");
         } else {
@@ -789,7 +536,7 @@ void Compiler::CompileLeaks(const json& doc) {
     } else {
       double d_mm = 0.0, cd = 0.61;
       const Got gd = Positive(e, "orifice_diameter_mm", path, Need::kRequired, &d_mm);
-      Range(e, "discharge_coefficient", path, Need::kOptional, 0.0, true, 1.0, false, &cd);
+      Range(e, "discharge_coefficient", path, Need::kOptional, 0.0, 1.0, &cd, true, false);
       if (gd == Got::kOk) {
         const double d = d_mm * 1e-3;
         l.cda_m2 = cd * 0.25 * 3.141592653589793 * d * d;
@@ -843,22 +590,22 @@ void Compiler::CompileOperations(const json& doc) {
     const json& e = (*arr)[op.index];
     const std::string path = Join("/operations", op.index);
     std::string action;
-    if (Choice(e, "action", path, Need::kRequired,
+    if (Enum(e, "action", path, Need::kRequired,
                {"pump_trip", "pump_start", "pump_speed", "valve", "setpoint", "head", "shut_in", "restart"},
                &action) != Got::kOk) {
-      CheckKeys(e, path, {"at_s", "action", "ramp_s", "speed", "opening", "target", "flow", "head_m"});
+      ExactKeys(e, path, {"at_s", "action", "ramp_s", "speed", "opening", "target", "flow", "head_m"});
       continue;
     }
     const double at = op.at;
     double ramp = action == "pump_trip" ? 10.0 : (action == "pump_start" || action == "shut_in" || action == "restart" ? 30.0 : 0.0);
     char line[200];
     if (action == "pump_trip" || action == "pump_start" || action == "pump_speed") {
-      CheckKeys(e, path, action == "pump_trip" ? std::vector<std::string>{"at_s", "action", "ramp_s"}
+      ExactKeys(e, path, action == "pump_trip" ? std::vector<std::string>{"at_s", "action", "ramp_s"}
                                                : std::vector<std::string>{"at_s", "action", "ramp_s", "speed"});
       NonNegative(e, "ramp_s", path, Need::kOptional, &ramp);
       double target = action == "pump_trip" ? 0.0 : 1.0;
       if (action != "pump_trip")
-        Range(e, "speed", path, action == "pump_speed" ? Need::kRequired : Need::kOptional, 0.0, false, 1.5, false, &target);
+        Range(e, "speed", path, action == "pump_speed" ? Need::kRequired : Need::kOptional, 0.0, 1.5, &target);
       if (!pump) {
         Add(Join(path, "action"), "\"" + action + "\" needs a pump upstream (\"upstream\": {\"type\": \"pump\", ...})");
         continue;
@@ -867,10 +614,10 @@ void Compiler::CompileOperations(const json& doc) {
       speed = target;
       std::snprintf(line, sizeof line, "%.0f s: %s to speed %.2f over %.0f s", at, action.c_str(), target, ramp);
     } else if (action == "valve") {
-      CheckKeys(e, path, {"at_s", "action", "ramp_s", "opening"});
+      ExactKeys(e, path, {"at_s", "action", "ramp_s", "opening"});
       NonNegative(e, "ramp_s", path, Need::kOptional, &ramp);
       double target = 0.0;
-      if (Range(e, "opening", path, Need::kRequired, 0.0, false, 1.0, false, &target) != Got::kOk) continue;
+      if (Range(e, "opening", path, Need::kRequired, 0.0, 1.0, &target) != Got::kOk) continue;
       if (!valve) {
         Add(Join(path, "action"), "\"valve\" needs a valve at the downstream boundary (\"downstream\": {..., \"valve\": {...}})");
         continue;
@@ -879,7 +626,7 @@ void Compiler::CompileOperations(const json& doc) {
       opening = target;
       std::snprintf(line, sizeof line, "%.0f s: valve to %.3f open over %.0f s", at, target, ramp);
     } else if (action == "setpoint") {
-      CheckKeys(e, path, {"at_s", "action", "ramp_s", "target", "flow"});
+      ExactKeys(e, path, {"at_s", "action", "ramp_s", "target", "flow"});
       NonNegative(e, "ramp_s", path, Need::kOptional, &ramp);
       std::string target;
       double q = 0.0;
@@ -933,11 +680,11 @@ void Compiler::CompileOperations(const json& doc) {
       std::snprintf(line, sizeof line, "%.0f s: setpoint %s to %.6g %s over %.0f s", at, target.c_str(), q,
                     vol ? "m3/s" : "kg/s", ramp);
     } else if (action == "head") {
-      CheckKeys(e, path, {"at_s", "action", "ramp_s", "target", "head_m"});
+      ExactKeys(e, path, {"at_s", "action", "ramp_s", "target", "head_m"});
       NonNegative(e, "ramp_s", path, Need::kOptional, &ramp);
       std::string target;
       double head = 0.0;
-      const Got gt = Choice(e, "target", path, Need::kRequired, {"upstream", "downstream"}, &target);
+      const Got gt = Enum(e, "target", path, Need::kRequired, {"upstream", "downstream"}, &target);
       const Got gh = Number(e, "head_m", path, Need::kRequired, &head);
       if (gt != Got::kOk || gh != Got::kOk) continue;
       if (target == "downstream" && m.downstream.type != DownstreamType::kReservoir) {
@@ -951,7 +698,7 @@ void Compiler::CompileOperations(const json& doc) {
       (target == "upstream" ? up_head_ : dn_head_).Add(at, ramp, head);
       std::snprintf(line, sizeof line, "%.0f s: %s head to %.2f m over %.0f s", at, target.c_str(), head, ramp);
     } else if (action == "shut_in") {
-      CheckKeys(e, path, {"at_s", "action", "ramp_s"});
+      ExactKeys(e, path, {"at_s", "action", "ramp_s"});
       NonNegative(e, "ramp_s", path, Need::kOptional, &ramp);
       if (!valve && m.downstream.type != DownstreamType::kFlow) {
         Add(Join(path, "action"), "\"shut_in\" needs a downstream valve or a flow-controlled delivery to close");
@@ -973,7 +720,7 @@ void Compiler::CompileOperations(const json& doc) {
       std::fill(lat.begin(), lat.end(), 0.0);
       std::snprintf(line, sizeof line, "%.0f s: shut-in (outlet and laterals close over %.0f s, then the inlet stops)", at, ramp);
     } else {  // restart
-      CheckKeys(e, path, {"at_s", "action", "ramp_s"});
+      ExactKeys(e, path, {"at_s", "action", "ramp_s"});
       NonNegative(e, "ramp_s", path, Need::kOptional, &ramp);
       if (!saved.valid) {
         Add(Join(path, "action"), "\"restart\" needs an earlier \"shut_in\"");
@@ -1089,7 +836,7 @@ void Compiler::InstrumentFields(const json& obj, const std::string& path, const 
   } else {
     keys.insert(keys.end(), {"flow", "pressure", "temperature", "level"});
   }
-  CheckKeys(obj, path, keys);
+  ExactKeys(obj, path, keys);
   Bool(obj, "enabled", path, Need::kOptional, &s->enabled);
   Positive(obj, "sample_period_s", path, Need::kOptional, &s->sample_period_s);
   NonNegative(obj, "phase_s", path, Need::kOptional, &s->phase_s);
@@ -1098,9 +845,9 @@ void Compiler::InstrumentFields(const json& obj, const std::string& path, const 
   NonNegative(obj, "latency_spread_s", path, Need::kOptional, &s->latency_spread_s);
   NonNegative(obj, "jitter_s", path, Need::kOptional, &s->jitter_s);
   NonNegative(obj, "spike_rate_per_h", path, Need::kOptional, &s->spike_rate_per_h);
-  Range(obj, "wander_phi", path, Need::kOptional, 0.0, false, 1.0, true, &s->wander_phi);
+  Range(obj, "wander_phi", path, Need::kOptional, 0.0, 1.0, &s->wander_phi, false, true);
   double decimals = 0.0;
-  if (Range(obj, "decimals", path, Need::kOptional, 0.0, false, 9.0, false, &decimals) == Got::kOk)
+  if (Range(obj, "decimals", path, Need::kOptional, 0.0, 9.0, &decimals) == Got::kOk)
     s->decimals = static_cast<int>(decimals);
   if (point == nullptr) return;
   // Bias: a number, or "draw" for one draw from the declared systematic accuracy.
@@ -1142,12 +889,12 @@ void Compiler::InstrumentFields(const json& obj, const std::string& path, const 
       const std::string wp = Join(path + "/quality", i);
       const json& w = (*arr)[i];
       if (!ElementObject(w, wp)) continue;
-      CheckKeys(w, wp, {"from_s", "to_s", "quality"});
+      ExactKeys(w, wp, {"from_s", "to_s", "quality"});
       QualityWindow qw;
       std::string q;
       const Got a = NonNegative(w, "from_s", wp, Need::kRequired, &qw.window.from_s);
       const Got b = NonNegative(w, "to_s", wp, Need::kRequired, &qw.window.to_s);
-      const Got c = Choice(w, "quality", wp, Need::kRequired, {"uncertain", "bad"}, &q);
+      const Got c = Enum(w, "quality", wp, Need::kRequired, {"uncertain", "bad"}, &q);
       if (a == Got::kOk && b == Got::kOk && !(qw.window.to_s > qw.window.from_s)) {
         Add(Join(wp, "to_s"), "must be after from_s");
       } else if (a == Got::kOk && b == Got::kOk && c == Got::kOk) {
@@ -1161,7 +908,7 @@ void Compiler::InstrumentFields(const json& obj, const std::string& path, const 
       const std::string wp = Join(path + "/spikes", i);
       const json& w = (*arr)[i];
       if (!ElementObject(w, wp)) continue;
-      CheckKeys(w, wp, {"at_s", "size"});
+      ExactKeys(w, wp, {"at_s", "size"});
       Spike sp;
       const Got a = NonNegative(w, "at_s", wp, Need::kRequired, &sp.at_s);
       const Got b = Number(w, "size", wp, Need::kRequired, &sp.size);
@@ -1232,52 +979,6 @@ void Compiler::CompileInstruments(const json& doc) {
   }
 }
 
-// --- Files -----------------------------------------------------------------------------
-
-class DuplicateKeyFinder {
- public:
-  bool operator()(int /*depth*/, json::parse_event_t event, json& parsed) {
-    switch (event) {
-      case json::parse_event_t::object_start: frames_.push_back(Frame{false, 0, {}, {}}); break;
-      case json::parse_event_t::array_start: frames_.push_back(Frame{true, 0, {}, {}}); break;
-      case json::parse_event_t::key:
-        if (!frames_.empty() && parsed.is_string()) {
-          Frame& top = frames_.back();
-          top.key = parsed.get<std::string>();
-          if (!top.keys.insert(top.key).second)
-            duplicates.push_back(ConfigProblem{Pointer(), "duplicate key \"" + top.key +
-                                                              "\" in one object; JSON keeps only the last, so keys must be unique"});
-        }
-        break;
-      case json::parse_event_t::value: Done(); break;
-      case json::parse_event_t::object_end:
-      case json::parse_event_t::array_end:
-        if (!frames_.empty()) frames_.pop_back();
-        Done();
-        break;
-    }
-    return true;
-  }
-  std::vector<ConfigProblem> duplicates;
-
- private:
-  struct Frame {
-    bool is_array;
-    size_t index;
-    std::string key;
-    std::set<std::string> keys;
-  };
-  void Done() {
-    if (!frames_.empty() && frames_.back().is_array) ++frames_.back().index;
-  }
-  std::string Pointer() const {
-    std::string out;
-    for (const Frame& f : frames_) out += "/" + (f.is_array ? std::to_string(f.index) : Token(f.key));
-    return out;
-  }
-  std::vector<Frame> frames_;
-};
-
 }  // namespace
 
 const char* MeasureName(Measure m) {
@@ -1315,50 +1016,11 @@ bool CompileScenario(const nlohmann::json& doc, const Site& site, Scenario* scen
 bool LoadScenarioFile(const std::string& path, const Site& site, Scenario* scenario, std::vector<ConfigProblem>* problems) {
   std::vector<ConfigProblem> local;
   std::vector<ConfigProblem>* out = problems != nullptr ? problems : &local;
-  std::string text;
-  {
-    std::FILE* f = std::fopen(path.c_str(), "rb");
-    if (f == nullptr) {
-      out->push_back(ConfigProblem{path, std::string("cannot read the file: ") + std::strerror(errno)});
-      return false;
-    }
-    char buf[65536];
-    size_t n = 0;
-    while ((n = std::fread(buf, 1, sizeof buf, f)) > 0) text.append(buf, n);
-    std::fclose(f);
-  }
   json doc;
-  DuplicateKeyFinder finder;
-  try {
-    doc = json::parse(text, std::ref(finder));
-  } catch (const json::parse_error& e) {
-    // nlohmann: "[json.exception.parse_error.101] parse error at line L, column C: reason"
-    const std::string what = e.what();
-    unsigned long line = 0, column = 0;
-    const size_t at = what.find("at line ");
-    if (at == std::string::npos || std::sscanf(what.c_str() + at, "at line %lu, column %lu", &line, &column) != 2) {
-      line = 1;
-      column = 0;
-      for (size_t i = 0; i < std::min<size_t>(e.byte, text.size()); ++i) {
-        if (text[i] == '\n') {
-          ++line;
-          column = 0;
-        } else {
-          ++column;
-        }
-      }
-    }
-    const size_t colon = what.find(": ", at == std::string::npos ? 0 : at);
-    out->push_back(ConfigProblem{path + ":" + std::to_string(line) + ":" + std::to_string(column),
-                                 "parse error: " + (colon == std::string::npos ? what : what.substr(colon + 2))});
-    return false;
-  } catch (const std::exception& e) {
-    out->push_back(ConfigProblem{path, std::string("cannot parse the file: ") + e.what()});
-    return false;
-  }
+  bool parsed = false;
+  const bool unique = ReadJsonFile(path, &doc, out, &parsed);
+  if (!parsed) return false;
   const size_t first = out->size();
-  const bool unique = finder.duplicates.empty();
-  for (ConfigProblem& p : finder.duplicates) out->push_back(std::move(p));
   const bool ok = CompileScenario(doc, site, scenario, out) && unique;
   for (size_t i = first; i < out->size(); ++i) {
     ConfigProblem& p = (*out)[i];

@@ -93,8 +93,8 @@ TEST_F(BatchFile, MissingScenarioAndParseErrors) {
   BatchSpec b;
   auto lines = Problems(R"({"format": "holdfast-batch/1", "scenario": "nope.json", "leak_free": {}, "grid": {}})", &b);
   EXPECT_TRUE(Has(lines, "b.json:/scenario:")) << lines.front();
-  EXPECT_TRUE(Has(lines, "nope.json: cannot open"));
-  EXPECT_TRUE(Has(lines, "b.json:/grid/chainages_m: is required"));
+  EXPECT_TRUE(Has(lines, "nope.json: cannot read the file"));
+  EXPECT_TRUE(Has(lines, "b.json:/grid/chainages_m: missing required field"));
   lines = Problems("{\"format\": ", &b);
   EXPECT_TRUE(Has(lines, "parse error"));
 }
@@ -253,7 +253,7 @@ TEST_F(BatchFile, NewKeysAreChecked) {
   EXPECT_TRUE(Has(lines, "b.json:/leak_free/shut_in_s: must be in [600, 82800]"));
   EXPECT_TRUE(Has(lines, "b.json:/grid/onsets_s: give either onsets_s"));
   EXPECT_TRUE(Has(lines, "b.json:/grid/design: must be \"cross\" or \"cycle\""));
-  EXPECT_TRUE(Has(lines, "b.json:/ruptures/fractions_pct: is required"));
+  EXPECT_TRUE(Has(lines, "b.json:/ruptures/fractions_pct: missing required field"));
 }
 
 }  // namespace

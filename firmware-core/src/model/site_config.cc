@@ -19,6 +19,8 @@
 
 #include <nlohmann/json.hpp>
 
+#include "holdfast/json_check.h"
+
 namespace holdfast {
 namespace {
 
@@ -27,122 +29,7 @@ using nlohmann::json;
 constexpr const char* kFormat = "holdfast-site/1";
 constexpr double kChainageTolerance_m = 1e-6;
 
-// --- Paths and wording ------------------------------------------------------
-
-// RFC 6901: '~' is written "~0" and '/' is written "~1" inside a token.
-std::string Token(const std::string& key) {
-  std::string out;
-  out.reserve(key.size());
-  for (char c : key) {
-    if (c == '~') {
-      out += "~0";
-    } else if (c == '/') {
-      out += "~1";
-    } else {
-      out += c;
-    }
-  }
-  return out;
-}
-
-std::string Join(const std::string& path, const std::string& key) { return path + "/" + Token(key); }
-std::string Join(const std::string& path, std::size_t index) {
-  return path + "/" + std::to_string(index);
-}
-
-std::string Num(double v) {
-  char buf[32];
-  std::snprintf(buf, sizeof buf, "%.10g", v);
-  return buf;
-}
-
-std::string Quote(const std::string& s) {
-  constexpr std::size_t kMax = 60;
-  if (s.size() <= kMax) return "\"" + s + "\"";
-  return "\"" + s.substr(0, kMax) + "...\"";
-}
-
-// What a value is, for "got ..." (never dumps a container: a deeply nested
-// document must not recurse here).
-std::string Describe(const json& j) {
-  switch (j.type()) {
-    case json::value_t::null: return "null";
-    case json::value_t::boolean: return std::string("a boolean (") + (j.get<bool>() ? "true" : "false") + ")";
-    case json::value_t::number_integer:
-    case json::value_t::number_unsigned:
-    case json::value_t::number_float: return "a number (" + Num(j.get<double>()) + ")";
-    case json::value_t::string: return "a string " + Quote(j.get_ref<const std::string&>());
-    case json::value_t::array: return "an array";
-    case json::value_t::object: return "an object";
-    default: return j.type_name();
-  }
-}
-
-std::size_t EditDistance(const std::string& a, const std::string& b) {
-  std::vector<std::size_t> row(b.size() + 1);
-  for (std::size_t j = 0; j <= b.size(); ++j) row[j] = j;
-  for (std::size_t i = 1; i <= a.size(); ++i) {
-    std::size_t diag = row[0];
-    row[0] = i;
-    for (std::size_t j = 1; j <= b.size(); ++j) {
-      const std::size_t up = row[j];
-      row[j] = std::min({row[j] + 1, row[j - 1] + 1, diag + (a[i - 1] == b[j - 1] ? 0u : 1u)});
-      diag = up;
-    }
-  }
-  return row[b.size()];
-}
-
-// The candidate closest to `name` if it is close enough to be a typo.
-std::string Closest(const std::string& name, const std::vector<std::string>& candidates) {
-  std::string best;
-  std::size_t best_d = 0;
-  for (const std::string& c : candidates) {
-    const std::size_t d = EditDistance(name, c);
-    if (best.empty() || d < best_d) {
-      best = c;
-      best_d = d;
-    }
-  }
-  const std::size_t limit = std::max<std::size_t>(1, std::min<std::size_t>(3, name.size() / 3));
-  if (!best.empty() && best_d <= limit) return best;
-  // A name missing its unit suffix ("youngs_modulus" for "youngs_modulus_gpa").
-  if (name.size() >= 3) {
-    for (const std::string& c : candidates) {
-      if (c.size() > name.size() && c.compare(0, name.size(), name) == 0 && c[name.size()] == '_') {
-        return c;
-      }
-    }
-  }
-  return std::string();
-}
-
-std::string ListNames(const std::vector<std::string>& names) {
-  std::string out;
-  for (const std::string& n : names) {
-    if (!out.empty()) out += ", ";
-    out += n;
-  }
-  return out;
-}
-
-std::vector<std::string> SplitNames(const std::string& list) {
-  std::vector<std::string> out;
-  std::size_t start = 0;
-  while (start <= list.size()) {
-    const std::size_t comma = list.find(", ", start);
-    out.push_back(list.substr(start, comma == std::string::npos ? std::string::npos : comma - start));
-    if (comma == std::string::npos) break;
-    start = comma + 2;
-  }
-  return out;
-}
-
-template <typename E>
-struct EnumName {
-  const char* name;
-  E value;
-};
+using namespace json_text;
 
 const EnumName<PointKind> kPointKinds[] = {{"flow", PointKind::kFlow},
                                            {"pressure", PointKind::kPressure},
@@ -177,11 +64,6 @@ const char* ModelName(FluidKind k) {
   return "unknown";
 }
 
-enum class Need { kRequired, kOptional };
-// Result of reading one member: absent (optional and not given, or required
-// and missing, which is already reported), bad (reported) or a usable value.
-enum class Got { kAbsent, kBad, kOk };
-
 double ElevationAt(const std::vector<ElevationPoint>& profile, double x) {
   if (profile.empty()) return 0.0;
   if (x <= profile.front().chainage_m) return profile.front().elevation_m;
@@ -198,9 +80,11 @@ double ElevationAt(const std::vector<ElevationPoint>& profile, double x) {
 
 // --- The compiler ------------------------------------------------------------
 
-class Compiler {
+// The member readers (Number, Positive, Enum, ExactKeys ...) are JsonCheck's.
+class Compiler : private JsonCheck {
  public:
-  Compiler(Site* site, std::vector<ConfigProblem>* problems) : site_(site), problems_(problems) {}
+  Compiler(Site* site, std::vector<ConfigProblem>* problems)
+      : JsonCheck(problems), site_(site), problems_(problems) {}
 
   void Run(const json& doc);
 
@@ -214,247 +98,6 @@ class Compiler {
     int index = -1;
     bool valid = false;
   };
-
-  void Add(const std::string& path, const std::string& message) {
-    problems_->push_back(ConfigProblem{path, message});
-  }
-
-  // --- Member access. `obj` is always a JSON object here. ---
-
-  const json* Member(const json& obj, const char* key) const {
-    auto it = obj.find(key);
-    return it == obj.end() ? nullptr : &*it;
-  }
-
-  // Present (any type), or absent (reported when required).
-  const json* Present(const json& obj, const char* key, const std::string& path, Need need,
-                      const char* expected) {
-    const json* m = Member(obj, key);
-    if (m == nullptr && need == Need::kRequired) {
-      Add(Join(path, key), std::string("missing required field \"") + key + "\" (" + expected + ")");
-    }
-    return m;
-  }
-
-  Got Number(const json& obj, const char* key, const std::string& path, Need need, double* out) {
-    const json* m = Present(obj, key, path, need, "a number");
-    if (m == nullptr) return Got::kAbsent;
-    if (!m->is_number()) {
-      Add(Join(path, key), "must be a number (got " + Describe(*m) + ")");
-      return Got::kBad;
-    }
-    const double v = m->get<double>();
-    if (!std::isfinite(v)) {
-      Add(Join(path, key), "must be a finite number");
-      return Got::kBad;
-    }
-    *out = v;
-    return Got::kOk;
-  }
-
-  Got Positive(const json& obj, const char* key, const std::string& path, Need need, double* out) {
-    double v = 0.0;
-    const Got g = Number(obj, key, path, need, &v);
-    if (g != Got::kOk) return g;
-    if (!(v > 0.0)) {
-      Add(Join(path, key), "must be positive (got " + Num(v) + ")");
-      return Got::kBad;
-    }
-    *out = v;
-    return Got::kOk;
-  }
-
-  Got NonNegative(const json& obj, const char* key, const std::string& path, Need need,
-                  double* out) {
-    double v = 0.0;
-    const Got g = Number(obj, key, path, need, &v);
-    if (g != Got::kOk) return g;
-    if (v < 0.0) {
-      Add(Join(path, key), "must not be negative (got " + Num(v) + ")");
-      return Got::kBad;
-    }
-    *out = v;
-    return Got::kOk;
-  }
-
-  Got Integer(const json& obj, const char* key, const std::string& path, Need need, int lo, int hi,
-              int* out) {
-    double v = 0.0;
-    const Got g = Number(obj, key, path, need, &v);
-    if (g != Got::kOk) return g;
-    if (v != std::floor(v)) {
-      Add(Join(path, key), "must be a whole number (got " + Num(v) + ")");
-      return Got::kBad;
-    }
-    if (v < lo || v > hi) {
-      Add(Join(path, key), "must be between " + std::to_string(lo) + " and " + std::to_string(hi) +
-                               " (got " + Num(v) + ")");
-      return Got::kBad;
-    }
-    *out = static_cast<int>(v);
-    return Got::kOk;
-  }
-
-  Got String(const json& obj, const char* key, const std::string& path, Need need,
-             std::string* out, const std::string& expected = "a string") {
-    const json* m = Present(obj, key, path, need, expected.c_str());
-    if (m == nullptr) return Got::kAbsent;
-    if (!m->is_string()) {
-      Add(Join(path, key), "must be a string (got " + Describe(*m) + ")");
-      return Got::kBad;
-    }
-    if (m->get_ref<const std::string&>().empty()) {
-      Add(Join(path, key), "must not be empty");
-      return Got::kBad;
-    }
-    *out = m->get<std::string>();
-    return Got::kOk;
-  }
-
-  Got Object(const json& obj, const char* key, const std::string& path, Need need,
-             const json** out) {
-    const json* m = Present(obj, key, path, need, "an object");
-    if (m == nullptr) return Got::kAbsent;
-    if (!m->is_object()) {
-      Add(Join(path, key), "must be an object (got " + Describe(*m) + ")");
-      return Got::kBad;
-    }
-    *out = m;
-    return Got::kOk;
-  }
-
-  Got Array(const json& obj, const char* key, const std::string& path, Need need,
-            const json** out) {
-    const json* m = Present(obj, key, path, need, "an array");
-    if (m == nullptr) return Got::kAbsent;
-    if (!m->is_array()) {
-      Add(Join(path, key), "must be an array (got " + Describe(*m) + ")");
-      return Got::kBad;
-    }
-    *out = m;
-    return Got::kOk;
-  }
-
-  // An array of at most `max` elements (SiteLimits); a longer one is
-  // reported with the bound and not compiled further.
-  Got ArrayAtMost(const json& obj, const char* key, const std::string& path, Need need, std::size_t max,
-                  const char* what, const json** out) {
-    const Got g = Array(obj, key, path, need, out);
-    if (g != Got::kOk) return g;
-    if ((*out)->size() > max) {
-      Add(Join(path, key), "at most " + std::to_string(max) + " " + what + " (got " +
-                               std::to_string((*out)->size()) + ")");
-      return Got::kBad;
-    }
-    return Got::kOk;
-  }
-
-  // An array element that must be an object.
-  bool ElementObject(const json& e, const std::string& path) {
-    if (e.is_object()) return true;
-    Add(path, "must be an object (got " + Describe(e) + ")");
-    return false;
-  }
-
-  template <typename E, std::size_t N>
-  Got Enum(const json& obj, const char* key, const std::string& path, Need need,
-           const EnumName<E> (&table)[N], E* out) {
-    std::vector<std::string> names;
-    for (const auto& e : table) names.emplace_back(e.name);
-    std::string name;
-    const Got g = String(obj, key, path, need, &name, "one of: " + ListNames(names));
-    if (g != Got::kOk) return g;
-    for (const auto& e : table) {
-      if (name == e.name) {
-        *out = e.value;
-        return Got::kOk;
-      }
-    }
-    std::string msg = std::string("unknown ") + key + " " + Quote(name);
-    const std::string hint = Closest(name, names);
-    if (!hint.empty()) msg += " (did you mean \"" + hint + "\"?)";
-    msg += "; accepted: " + ListNames(names);
-    Add(Join(path, key), msg);
-    return Got::kBad;
-  }
-
-  // Resolves a unit name that may be of any of `accepted` quantities.
-  bool Unit(const std::string& name, std::initializer_list<Quantity> accepted,
-            const std::string& path, UnitConversion* out) {
-    std::string why;
-    if (accepted.size() == 1) {
-      if (LookUpUnitOf(name, *accepted.begin(), out, &why)) return true;
-      Add(path, why);
-      return false;
-    }
-    for (Quantity q : accepted) {
-      if (LookUpUnitOf(name, q, out, nullptr)) return true;
-    }
-    std::vector<std::string> names;
-    std::string wanted;
-    for (Quantity q : accepted) {
-      for (std::string& n : SplitNames(KnownUnitNames(q))) names.push_back(std::move(n));
-      if (!wanted.empty()) wanted += " or ";
-      wanted += QuantityName(q);
-    }
-    UnitConversion other;
-    if (LookUpUnit(name, &other, nullptr)) {
-      Add(path, "unit " + Quote(name) + " is a " + QuantityName(other.quantity) +
-                    " unit, expected a " + wanted + " unit (one of: " + ListNames(names) + ")");
-      return false;
-    }
-    std::string msg = "unknown " + wanted + " unit " + Quote(name);
-    const std::string hint = Closest(name, names);
-    if (!hint.empty()) msg += " (did you mean \"" + hint + "\"?)";
-    msg += "; unit names are case-sensitive; accepted: " + ListNames(names);
-    Add(path, msg);
-    return false;
-  }
-
-  // A quantity {"value": number, "unit": "name"}; `si` gets value converted.
-  Got Qty(const json& obj, const char* key, const std::string& path, Need need,
-          std::initializer_list<Quantity> accepted, double* si, UnitConversion* conv = nullptr) {
-    const json* q = Present(obj, key, path, need, "a quantity {\"value\": number, \"unit\": name}");
-    if (q == nullptr) return Got::kAbsent;
-    const std::string qpath = Join(path, key);
-    if (!q->is_object()) {
-      Add(qpath, "must be a quantity {\"value\": number, \"unit\": \"name\"} (got " + Describe(*q) +
-                     ")");
-      return Got::kBad;
-    }
-    CheckKeys(*q, qpath, {"value", "unit"});
-    double value = 0.0;
-    std::string unit;
-    const Got gv = Number(*q, "value", qpath, Need::kRequired, &value);
-    const Got gu = String(*q, "unit", qpath, Need::kRequired, &unit);
-    if (gv != Got::kOk || gu != Got::kOk) return Got::kBad;
-    UnitConversion c;
-    if (!Unit(unit, accepted, Join(qpath, "unit"), &c)) return Got::kBad;
-    const double v = c.ToSi(value);
-    if (!std::isfinite(v)) {
-      Add(Join(qpath, "value"), "is out of range");
-      return Got::kBad;
-    }
-    *si = v;
-    if (conv != nullptr) *conv = c;
-    return Got::kOk;
-  }
-
-  // Reports every member not in `allowed` (a typo must not become a default).
-  // Members whose name starts with '_' are comments and are ignored.
-  void CheckKeys(const json& obj, const std::string& path, std::initializer_list<const char*> allowed) {
-    std::vector<std::string> names(allowed.begin(), allowed.end());
-    for (auto it = obj.begin(); it != obj.end(); ++it) {
-      const std::string& key = it.key();
-      if (!key.empty() && key[0] == '_') continue;
-      if (std::find(names.begin(), names.end(), key) != names.end()) continue;
-      std::string msg = "unknown key " + Quote(key);
-      const std::string hint = Closest(key, names);
-      if (!hint.empty()) msg += " (did you mean \"" + hint + "\"?)";
-      msg += "; accepted here: " + ListNames(names);
-      Add(Join(path, key), msg);
-    }
-  }
 
   // A reference to a point of `kind`; `user` says what needs it.
   Got PointRef(const json& obj, const char* key, const std::string& path, Need need,
@@ -535,7 +178,7 @@ void Compiler::Run(const json& doc) {
                 "\" (got " + Describe(doc) + ")");
     return;
   }
-  CheckKeys(doc, "", {"format", "site", "fluids", "points", "segments", "districts"});
+  ExactKeys(doc, "", {"format", "site", "fluids", "points", "segments", "districts"});
   std::string format;
   const json* f = Member(doc, "format");
   if (f == nullptr) {
@@ -559,7 +202,7 @@ void Compiler::CompileSiteBlock(const json& doc) {
   const json* s = nullptr;
   if (Object(doc, "site", "", Need::kRequired, &s) != Got::kOk) return;
   const std::string path = "/site";
-  CheckKeys(*s, path, {"name", "atmospheric_pressure", "standard_conditions", "tick_s"});
+  ExactKeys(*s, path, {"name", "atmospheric_pressure", "standard_conditions", "tick_s"});
   String(*s, "name", path, Need::kRequired, &site_->name);
 
   double v = 0.0;
@@ -574,7 +217,7 @@ void Compiler::CompileSiteBlock(const json& doc) {
   const json* sc = nullptr;
   if (Object(*s, "standard_conditions", path, Need::kOptional, &sc) == Got::kOk) {
     const std::string scp = path + "/standard_conditions";
-    CheckKeys(*sc, scp, {"pressure", "temperature"});
+    ExactKeys(*sc, scp, {"pressure", "temperature"});
     if (Qty(*sc, "pressure", scp, Need::kRequired, {Quantity::kPressure}, &v) == Got::kOk) {
       if (v <= 0.0) {
         Add(scp + "/pressure/value", "must be positive (absolute), got " + Num(v) + " Pa");
@@ -636,10 +279,10 @@ void Compiler::CompileFluid(const json& f, const std::string& path, FluidSpec* f
   double v = 0.0;
   switch (fluid->kind) {
     case FluidKind::kWater:
-      CheckKeys(f, path, {"model", "viscosity_cp"});
+      ExactKeys(f, path, {"model", "viscosity_cp"});
       break;
     case FluidKind::kGenericLiquid:
-      CheckKeys(f, path,
+      ExactKeys(f, path,
                 {"model", "reference_density", "reference_pressure", "reference_temperature",
                  "bulk_modulus", "thermal_expansion_per_k", "viscosity_cp"});
       if (Qty(f, "reference_density", path, Need::kRequired, {Quantity::kDensity}, &v) == Got::kOk) {
@@ -670,10 +313,10 @@ void Compiler::CompileFluid(const json& f, const std::string& path, FluidSpec* f
     case FluidKind::kCrudeOil:
     case FluidKind::kRefinedProduct:
       if (fluid->kind == FluidKind::kCrudeOil) {
-        CheckKeys(f, path, {"model", "base_density", "viscosity_cp"});
+        ExactKeys(f, path, {"model", "base_density", "viscosity_cp"});
         fluid->commodity = ApiCommodity::kCrudeOil;
       } else {
-        CheckKeys(f, path, {"model", "product", "base_density", "viscosity_cp"});
+        ExactKeys(f, path, {"model", "product", "base_density", "viscosity_cp"});
         Enum(f, "product", path, Need::kRequired, kProducts, &fluid->commodity);
       }
       if (Qty(f, "base_density", path, Need::kRequired, {Quantity::kDensity}, &v) == Got::kOk) {
@@ -682,7 +325,7 @@ void Compiler::CompileFluid(const json& f, const std::string& path, FluidSpec* f
       }
       break;
     case FluidKind::kNaturalGas:
-      CheckKeys(f, path, {"model", "gas_gravity", "viscosity_cp"});
+      ExactKeys(f, path, {"model", "gas_gravity", "viscosity_cp"});
       Positive(f, "gas_gravity", path, Need::kRequired, &fluid->gas_gravity);
       break;
   }
@@ -743,7 +386,7 @@ void Compiler::CompilePoint(const json& p, const std::string& path, PointSpec* p
     Add(path, "a point must be an object with \"kind\" and \"unit\" (got " + Describe(p) + ")");
     return;
   }
-  CheckKeys(p, path, {"kind", "unit", "reference", "staleness_s", "accuracy", "range"});
+  ExactKeys(p, path, {"kind", "unit", "reference", "staleness_s", "accuracy", "range"});
   const bool kind_ok = Enum(p, "kind", path, Need::kRequired, kPointKinds, &point->kind) == Got::kOk;
   info->kind_known = kind_ok;
   const bool unit_given = String(p, "unit", path, Need::kRequired, &point->unit_name) == Got::kOk;
@@ -789,7 +432,7 @@ void Compiler::CompilePoint(const json& p, const std::string& path, PointSpec* p
     double random = 0.0;
     double systematic = 0.0;
     if (point->kind == PointKind::kFlow) {
-      CheckKeys(*acc, apath, {"random_pct", "systematic_pct"});
+      ExactKeys(*acc, apath, {"random_pct", "systematic_pct"});
       if (NonNegative(*acc, "random_pct", apath, Need::kOptional, &random) == Got::kOk &&
           random >= 100.0) {
         Add(apath + "/random_pct", "is a percentage of reading and must be below 100 (got " +
@@ -803,7 +446,7 @@ void Compiler::CompilePoint(const json& p, const std::string& path, PointSpec* p
       point->random_sigma = random / 100.0;
       point->systematic_sigma = systematic / 100.0;
     } else {
-      CheckKeys(*acc, apath, {"random", "systematic"});
+      ExactKeys(*acc, apath, {"random", "systematic"});
       NonNegative(*acc, "random", apath, Need::kOptional, &random);
       NonNegative(*acc, "systematic", apath, Need::kOptional, &systematic);
       if (unit_ok) {
@@ -859,7 +502,7 @@ void Compiler::CompileSegments(const json& doc) {
 }
 
 void Compiler::CompileSegment(const json& s, const std::string& path, SegmentSpec* seg) {
-  CheckKeys(s, path,
+  ExactKeys(s, path,
             {"id", "name", "fluid", "reach_length_m", "sections", "elevation_profile", "meters",
              "pressure_points", "temperature_points", "tanks", "landmarks", "temperature_model",
              "balance", "nominal_flow"});
@@ -962,7 +605,7 @@ bool Compiler::CompileSections(const json& s, const std::string& path, SegmentSp
       all_lengths = false;
       continue;
     }
-    CheckKeys(e, p,
+    ExactKeys(e, p,
               {"length_m", "outside_diameter_mm", "wall_thickness_mm", "youngs_modulus_gpa",
                "poisson_ratio", "restraint", "roughness_mm", "wall_thermal_expansion_per_k"});
     PipeSection sec;
@@ -1030,7 +673,7 @@ void Compiler::CompileProfile(const json& s, const std::string& path, bool lengt
     const std::string p = Join(ppath, i);
     const json& e = (*prof)[i];
     if (!ElementObject(e, p)) continue;
-    CheckKeys(e, p, {"chainage_m", "elevation_m"});
+    ExactKeys(e, p, {"chainage_m", "elevation_m"});
     ElevationPoint pt;
     const bool x_ok = Number(e, "chainage_m", p, Need::kRequired, &pt.chainage_m) == Got::kOk;
     const bool z_ok = Number(e, "elevation_m", p, Need::kRequired, &pt.elevation_m) == Got::kOk;
@@ -1065,7 +708,7 @@ void Compiler::CompileMeters(const json& s, const std::string& path, bool length
     const std::string p = Join(mpath, i);
     const json& e = (*meters)[i];
     if (!ElementObject(e, p)) continue;
-    CheckKeys(e, p, {"point", "role", "type", "chainage_m", "pressure_point", "temperature_point"});
+    ExactKeys(e, p, {"point", "role", "type", "chainage_m", "pressure_point", "temperature_point"});
     MeterSpec m;
     const Got gp = PointRef(e, "point", p, Need::kRequired, PointKind::kFlow, "a meter", &m.point);
     const bool role_ok = Enum(e, "role", p, Need::kRequired, kMeterRoles, &m.role) == Got::kOk;
@@ -1152,7 +795,7 @@ void Compiler::CompileGauges(const json& s, const char* key, PointKind kind,
     const std::string p = Join(gpath, i);
     const json& e = (*list)[i];
     if (!ElementObject(e, p)) continue;
-    CheckKeys(e, p, {"point", "chainage_m", "elevation_m"});
+    ExactKeys(e, p, {"point", "chainage_m", "elevation_m"});
     GaugeSpec g;
     const Got gp = PointRef(e, "point", p, Need::kRequired, kind, user.c_str(), &g.point);
     const Got gx = Number(e, "chainage_m", p, Need::kRequired, &g.chainage_m);
@@ -1188,7 +831,7 @@ void Compiler::CompileStrapping(const json& e, const std::string& p, std::vector
   const json* table = nullptr;
   if (Object(e, "strapping_table", p, Need::kRequired, &table) == Got::kOk) {
     const std::string sp = p + "/strapping_table";
-    CheckKeys(*table, sp, {"level_unit", "volume_unit", "rows"});
+    ExactKeys(*table, sp, {"level_unit", "volume_unit", "rows"});
     UnitConversion lu;
     UnitConversion vu;
     std::string name;
@@ -1260,7 +903,7 @@ void Compiler::CompileTanks(const json& s, const std::string& path, SegmentSpec*
     const std::string p = Join(tpath, i);
     const json& e = (*tanks)[i];
     if (!ElementObject(e, p)) continue;
-    CheckKeys(e, p, {"id", "level_point", "temperature_point", "strapping_table"});
+    ExactKeys(e, p, {"id", "level_point", "temperature_point", "strapping_table"});
     TankSpec tank;
     if (String(e, "id", p, Need::kRequired, &tank.id) == Got::kOk) {
       auto [it, fresh] = tank_ids_.emplace(tank.id, p + "/id");
@@ -1286,7 +929,7 @@ void Compiler::CompileLandmarks(const json& s, const std::string& path, bool len
     const std::string p = Join(lpath, i);
     const json& e = (*marks)[i];
     if (!ElementObject(e, p)) continue;
-    CheckKeys(e, p, {"name", "chainage_m"});
+    ExactKeys(e, p, {"name", "chainage_m"});
     LandmarkSpec mark;
     const bool name_ok = String(e, "name", p, Need::kRequired, &mark.name) == Got::kOk;
     if (Number(e, "chainage_m", p, Need::kRequired, &mark.chainage_m) == Got::kOk &&
@@ -1302,7 +945,7 @@ void Compiler::CompileTemperatureModel(const json& s, const std::string& path, S
   const json* tm = nullptr;
   if (Object(s, "temperature_model", path, Need::kOptional, &tm) != Got::kOk) return;
   const std::string p = path + "/temperature_model";
-  CheckKeys(*tm, p, {"filter_s", "ground_temperature", "thermal_time_constant_s"});
+  ExactKeys(*tm, p, {"filter_s", "ground_temperature", "thermal_time_constant_s"});
   Positive(*tm, "filter_s", p, Need::kOptional, &seg->temperature_filter_s);
   const bool has_ground = Member(*tm, "ground_temperature") != nullptr;
   const bool has_tau = Member(*tm, "thermal_time_constant_s") != nullptr;
@@ -1331,7 +974,7 @@ void Compiler::CompileBalance(const json& s, const std::string& path, SegmentSpe
   const json* b = nullptr;
   if (Object(s, "balance", path, Need::kOptional, &b) != Got::kOk) return;
   const std::string p = path + "/balance";
-  CheckKeys(*b, p, {"windows_s", "buckets_per_window", "confidence"});
+  ExactKeys(*b, p, {"windows_s", "buckets_per_window", "confidence"});
   const bool buckets_ok =
       Integer(*b, "buckets_per_window", p, Need::kOptional, 4, 1000, &seg->buckets_per_window) !=
       Got::kBad;
@@ -1479,7 +1122,7 @@ void Compiler::CompileDistricts(const json& doc) {
 }
 
 void Compiler::CompileDistrict(const json& d, const std::string& path, DistrictSpec* out) {
-  CheckKeys(d, path,
+  ExactKeys(d, path,
             {"id", "name", "inlets", "outlets", "reservoirs", "pressure_reference", "customer_meters", "properties",
              "service_connections", "mains_length_km", "private_pipe_length_km", "time_zone", "night_flow",
              "burst_detection", "level_smoothing_s"});
@@ -1498,7 +1141,7 @@ void Compiler::CompileDistrict(const json& d, const std::string& path, DistrictS
       const std::string p = Join(path + "/reservoirs", i);
       const json& e = (*res)[i];
       if (!ElementObject(e, p)) continue;
-      CheckKeys(e, p, {"id", "level_point", "strapping_table"});
+      ExactKeys(e, p, {"id", "level_point", "strapping_table"});
       ReservoirSpec r;
       if (String(e, "id", p, Need::kRequired, &r.id) == Got::kOk) {
         auto [it, fresh] = tank_ids_.emplace(r.id, p + "/id");
@@ -1512,7 +1155,7 @@ void Compiler::CompileDistrict(const json& d, const std::string& path, DistrictS
   const json* pr = nullptr;
   if (Object(d, "pressure_reference", path, Need::kRequired, &pr) == Got::kOk) {
     const std::string p = path + "/pressure_reference";
-    CheckKeys(*pr, p, {"point", "head_offset_m"});
+    ExactKeys(*pr, p, {"point", "head_offset_m"});
     PointRef(*pr, "point", p, Need::kRequired, PointKind::kPressure, "the average-zone-pressure reference",
              &out->pressure_point);
     Number(*pr, "head_offset_m", p, Need::kOptional, &out->pressure_head_offset_m);
@@ -1520,7 +1163,7 @@ void Compiler::CompileDistrict(const json& d, const std::string& path, DistrictS
   const json* cm = nullptr;
   if (Object(d, "customer_meters", path, Need::kOptional, &cm) == Got::kOk) {
     const std::string p = path + "/customer_meters";
-    CheckKeys(*cm, p, {"point", "coverage", "reading", "interval_s", "volume_unit"});
+    ExactKeys(*cm, p, {"point", "coverage", "reading", "interval_s", "volume_unit"});
     std::vector<int> one;
     json holder = json::object();
     if (const json* m = Member(*cm, "point")) holder["inlets"] = json::array({*m});
@@ -1556,7 +1199,7 @@ void Compiler::CompileDistrict(const json& d, const std::string& path, DistrictS
   const json* props = nullptr;
   if (Object(d, "properties", path, Need::kRequired, &props) == Got::kOk) {
     const std::string p = path + "/properties";
-    CheckKeys(*props, p, {"households", "non_households", "population"});
+    ExactKeys(*props, p, {"households", "non_households", "population"});
     NonNegative(*props, "households", p, Need::kRequired, &out->households);
     NonNegative(*props, "non_households", p, Need::kOptional, &out->non_households);
     NonNegative(*props, "population", p, Need::kOptional, &out->population);
@@ -1575,7 +1218,7 @@ void Compiler::CompileDistrict(const json& d, const std::string& path, DistrictS
   const json* nf = nullptr;
   if (Object(d, "night_flow", path, Need::kOptional, &nf) == Got::kOk) {
     const std::string p = path + "/night_flow";
-    CheckKeys(*nf, p,
+    ExactKeys(*nf, p,
               {"utc_offset_h", "window_start_h", "window_end_h", "averaging_s", "household_l_per_property_h",
                "person_l_per_h", "per_person", "non_household_l_per_property_h", "exceptional_m3_h", "n1"});
     double off_h = 0.0;
@@ -1613,7 +1256,7 @@ void Compiler::CompileDistrict(const json& d, const std::string& path, DistrictS
   const json* bd = nullptr;
   if (Object(d, "burst_detection", path, Need::kOptional, &bd) == Got::kOk) {
     const std::string p = path + "/burst_detection";
-    CheckKeys(*bd, p,
+    ExactKeys(*bd, p,
               {"false_alarm_interval_days", "profile_learning_days", "quiet_start_h", "quiet_end_h",
                "night_alarm_sigmas", "min_step_m3_h", "day_step_m3_h"});
     const bool qs = NonNegative(*bd, "quiet_start_h", p, Need::kOptional, &out->quiet_start_h) != Got::kBad;

@@ -15,6 +15,7 @@
 #include <string_view>
 #include <vector>
 
+#include "holdfast/json_check.h"
 #include "holdfast/units.h"
 
 namespace holdfast {
@@ -99,23 +100,6 @@ const UnitEntry* Find(std::string_view name) {
   return nullptr;
 }
 
-// Levenshtein distance, for "did you mean".
-std::size_t EditDistance(std::string_view a, std::string_view b) {
-  std::vector<std::size_t> row(b.size() + 1);
-  for (std::size_t j = 0; j <= b.size(); ++j) row[j] = j;
-  for (std::size_t i = 1; i <= a.size(); ++i) {
-    std::size_t diag = row[0];
-    row[0] = i;
-    for (std::size_t j = 1; j <= b.size(); ++j) {
-      const std::size_t up = row[j];
-      const std::size_t cost = a[i - 1] == b[j - 1] ? 0 : 1;
-      row[j] = std::min({row[j] + 1, row[j - 1] + 1, diag + cost});
-      diag = up;
-    }
-  }
-  return row[b.size()];
-}
-
 bool EqualIgnoringCase(std::string_view a, std::string_view b) {
   if (a.size() != b.size()) return false;
   for (std::size_t i = 0; i < a.size(); ++i) {
@@ -135,7 +119,7 @@ std::string Suggest(std::string_view name, const Quantity* wanted) {
   for (const UnitEntry& u : kUnits) {
     if (wanted != nullptr && u.quantity != *wanted) continue;
     if (EqualIgnoringCase(name, u.name)) return u.name;
-    const std::size_t d = EditDistance(name, u.name);
+    const std::size_t d = json_text::EditDistance(name, u.name);
     if (best == nullptr || d < best_d) {
       best = &u;
       best_d = d;
