@@ -3,6 +3,8 @@
 // checkpoints, and its periods and input limits. Documented in config/DAEMON.md.
 #pragma once
 
+#include "credentials.h"  // Credentials, ReadCredentialsFile (shared with `holdfast alarms`)
+
 #include <string>
 #include <vector>
 
@@ -103,15 +105,6 @@ struct DaemonOptions {
 // file and the field ("daemon.json:/status_period_s: must be positive").
 bool LoadDaemonConfig(const std::string& path, DaemonOptions* options, std::string* why);
 
-struct Credentials {
-  std::string user;
-  std::string password;  // never logged
-};
 
-// Reads a credentials file: line 1 the user name, line 2 the password.
-// Refuses (false, with the reason, never the content) a file that is not a
-// regular file, that is not owned by the user the daemon runs as, or that
-// group or others can read, write or execute.
-bool ReadCredentialsFile(const std::string& path, Credentials* out, std::string* why);
 
 }  // namespace holdfast::daemon

@@ -10,14 +10,12 @@
 // commands go to <prefix>/commands/<user> and the answer is read from
 // <prefix>/replies/<user>. `watch` de-duplicates events by (segment, seq):
 // after a broker outage the daemon sends its backlog again.
-#include <sys/stat.h>
 #include <unistd.h>
 
 #include <chrono>
 #include <cmath>
 #include <condition_variable>
 #include <cstdio>
-#include <fstream>
 #include <mutex>
 #include <set>
 #include <string>
@@ -28,7 +26,9 @@
 #include <nlohmann/json.hpp>
 
 #include "cli_commands.h"
+#include "credentials.h"
 #include "holdfast/alarm.h"
+#include "topics.h"
 
 namespace holdfast::cli {
 namespace {
@@ -54,31 +54,16 @@ struct AlarmsArgs {
   bool json = false;
 };
 
+// The credentials file, read as holdfastd reads its own (credentials.h).
 bool ReadCredentials(const std::string& path, std::string* user, std::string* password) {
-  struct stat st {};
-  if (::stat(path.c_str(), &st) != 0) {
-    std::fprintf(stderr, "holdfast alarms: %s: cannot read the credentials file\n", path.c_str());
+  daemon::Credentials c;
+  std::string why;
+  if (!daemon::ReadCredentialsFile(path, &c, &why)) {
+    std::fprintf(stderr, "holdfast alarms: %s\n", why.c_str());
     return false;
   }
-  if ((st.st_mode & 077) != 0) {
-    std::fprintf(stderr, "holdfast alarms: %s: accessible to group or others; chmod 600 it\n", path.c_str());
-    return false;
-  }
-  if (st.st_uid != ::geteuid()) {
-    std::fprintf(stderr, "holdfast alarms: %s: owned by uid %u, not by you (uid %u); chown it\n", path.c_str(),
-                 static_cast<unsigned>(st.st_uid), static_cast<unsigned>(::geteuid()));
-    return false;
-  }
-  std::ifstream in(path);
-  std::getline(in, *user);
-  std::getline(in, *password);
-  while (!user->empty() && (user->back() == '\r' || user->back() == ' ')) user->pop_back();
-  while (!password->empty() && (password->back() == '\r' || password->back() == ' ')) password->pop_back();
-  if (user->empty() || password->empty()) {
-    std::fprintf(stderr, "holdfast alarms: %s: expected the user name on line 1 and the password on line 2\n",
-                 path.c_str());
-    return false;
-  }
+  *user = std::move(c.user);
+  *password = std::move(c.password);
   return true;
 }
 
@@ -183,7 +168,8 @@ int Watch(const AlarmsArgs& a) {
   Session s(a);
   std::string user;
   if (const int rc = s.Connect(a, &user)) return rc;
-  if (!s.Subscribe(a.prefix + "/events/#")) return kExitRuntime;
+  const daemon::TopicTree topics(a.prefix);
+  if (!s.Subscribe(topics.Events("#"))) return kExitRuntime;
   std::fprintf(stderr, "holdfast alarms: watching %s/events/# on %s\n", a.prefix.c_str(), a.broker.c_str());
   if (a.since_seq >= 0) {
     // Catch up: the daemon republishes every event it still keeps from this
@@ -195,7 +181,7 @@ int Watch(const AlarmsArgs& a) {
     }
     const std::string req = "{\"id\":\"watch-" + std::to_string(::getpid()) + "\",\"replay_from_seq\":" +
                             std::to_string(a.since_seq) + "}";
-    if (!s.Publish(a.prefix + "/commands/" + user, req)) return 1;
+    if (!s.Publish(topics.Command(user), req)) return 1;
     std::fprintf(stderr, "holdfast alarms: asked for the events from seq %lld\n", a.since_seq);
   }
   std::set<std::pair<std::string, uint64_t>> seen;
@@ -269,7 +255,8 @@ int SendCommand(const AlarmsArgs& a, const std::string& command) {
   Session s(a);
   std::string user;
   if (const int rc = s.Connect(a, &user)) return rc;
-  if (!s.Subscribe(a.prefix + "/replies/" + user)) return kExitRuntime;
+  const daemon::TopicTree topics(a.prefix);
+  if (!s.Subscribe(topics.Reply(user))) return kExitRuntime;
   nlohmann::json c;
   const std::string id = "cli-" + std::to_string(::getpid()) + "-" +
                          std::to_string(std::chrono::system_clock::now().time_since_epoch().count() % 1000000);
@@ -280,7 +267,7 @@ int SendCommand(const AlarmsArgs& a, const std::string& command) {
   c["user"] = user;
   if (command == "shelve") c["duration_s"] = a.duration_s;
   if (!a.reason.empty()) c["reason"] = a.reason;
-  if (!s.Publish(a.prefix + "/commands/" + user, c.dump())) return kExitRuntime;
+  if (!s.Publish(topics.Command(user), c.dump())) return kExitRuntime;
   const auto deadline = std::chrono::steady_clock::now() + std::chrono::duration<double>(a.timeout_s);
   std::pair<std::string, std::string> m;
   while (std::chrono::steady_clock::now() < deadline) {
