@@ -1,5 +1,7 @@
 #include "daemon_config.h"
 
+#include "holdfast/json_check.h"
+
 #include <sys/stat.h>
 #include <unistd.h>
 
@@ -96,9 +98,21 @@ bool LoadDaemonConfig(const std::string& path, DaemonOptions* options, std::stri
   }
   std::stringstream ss;
   ss << in.rdbuf();
-  const nlohmann::json doc = nlohmann::json::parse(ss.str(), nullptr, false);
-  if (doc.is_discarded() || !doc.is_object()) {
-    if (why) *why = path + ": not a JSON object (parse error)";
+  // Parse errors at "file:line:column", repeated keys at their pointer
+  // (json_check.h), as every other file the project reads.
+  nlohmann::json doc;
+  std::vector<ConfigProblem> parsed;
+  if (!ParseJsonText(ss.str(), path, &doc, &parsed)) {
+    std::string m;
+    for (const ConfigProblem& p : parsed) {
+      if (!m.empty()) m += "; ";
+      m += (p.path.rfind(path, 0) == 0 ? p.path : path + ":" + p.path) + ": " + p.message;
+    }
+    if (why) *why = m;
+    return false;
+  }
+  if (!doc.is_object()) {
+    if (why) *why = path + ": not a JSON object";
     return false;
   }
   std::vector<std::string> problems;
